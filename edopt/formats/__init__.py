@@ -1,0 +1,1 @@
+"""Readers and writers of the file formats edopt uses (case files, netlists)."""

@@ -1,0 +1,1 @@
+"""Solvers: they take a Model and return sizes; they never read files or print."""
