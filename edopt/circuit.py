@@ -8,6 +8,7 @@ turns a validated Circuit and a Technology into flat arrays; nothing downstream 
 from __future__ import annotations
 
 import math
+import numbers
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
@@ -126,8 +127,15 @@ class Circuit:
         if name in self.gates:
             raise CircuitError(f"gate {name!r} is defined twice")
         gtype = self.gate_type(type, gate=name)
+        if isinstance(inputs, str):
+            raise CircuitError(
+                f"gate {name!r}: inputs must be a pin -> net mapping or a list of nets, "
+                f"not the string {inputs!r}")
         if isinstance(inputs, Mapping):
-            conn = {str(k): str(v) for k, v in inputs.items()}
+            bad = [k for k, v in inputs.items() if not isinstance(v, str) or not v]
+            if bad:
+                raise CircuitError(f"gate {name!r}: pin {bad[0]!r} needs a net name")
+            conn = {str(k): v for k, v in inputs.items()}
         else:
             nets = list(inputs)
             if len(nets) != len(gtype.pins):
@@ -148,8 +156,11 @@ class Circuit:
         for key, value in (("size", size), ("size_min", size_min), ("size_max", size_max)):
             if value is not None:
                 _positive(value, f"gate {name!r}: {key}")
-        _positive(copies, f"gate {name!r}: copies")
-        gate = Gate(name, gtype.name, conn, str(output), size, size_min, size_max, float(copies))
+        _finite(copies, f"gate {name!r}: copies")
+        if copies < 1:
+            raise CircuitError(f"gate {name!r}: copies must be >= 1, got {copies!r}")
+        gate = Gate(name, gtype.name, conn, str(output), _opt_float(size), _opt_float(size_min),
+                    _opt_float(size_max), float(copies))
         self.gates[name] = gate
         return gate
 
@@ -171,12 +182,17 @@ class Circuit:
             _positive(cap_max, f"input {net!r}: cap_max")
         if cap is not None and cap_max is not None:
             raise CircuitError(f"input {net!r}: give either cap or cap_max, not both")
-        self.inputs[net] = InputPort(net, float(arrival_ps), drive, cap, cap_max)
+        if net in self.inputs:
+            raise CircuitError(f"input {net!r} is declared twice")
+        self.inputs[net] = InputPort(net, float(arrival_ps), _opt_float(drive), _opt_float(cap),
+                                     _opt_float(cap_max))
 
     def add_output(self, net: str, load: float, allowance_ps: float = 0.0) -> None:
         """Declare a primary output net with its fixed load in C_u (see OutputPort)."""
         _nonnegative(load, f"output {net!r}: load")
         _finite(allowance_ps, f"output {net!r}: allowance_ps")
+        if net in self.outputs:
+            raise CircuitError(f"output {net!r} is declared twice")
         self.outputs[net] = OutputPort(net, float(load), float(allowance_ps))
 
     def set_net(self, net: str, wire: float | None = None, activity: float | None = None) -> None:
@@ -211,6 +227,9 @@ class Circuit:
         if self.size_min > self.size_max:
             raise CircuitError(f"size_min {self.size_min} is above size_max {self.size_max}")
         _nonnegative(self.activity_default, "activity")
+        if self.activity_default > 1:
+            raise CircuitError(
+                f"activity {self.activity_default} is a probability per operation; use 0..1")
         driver: dict[str, str] = {}
         fanout: dict[str, list[tuple[str, str]]] = {}
         for g in self.gates.values():
@@ -252,6 +271,10 @@ class Circuit:
                     f"input {net!r}: cap fixes the size of the one gate it drives, but it drives "
                     f"{len(users)} pins; use cap_max to limit the total instead"
                 )
+            if port.cap is not None and self.gates[users[0][0]].size is not None:
+                raise CircuitError(
+                    f"input {net!r}: cap fixes the size of gate {users[0][0]!r}, which also has "
+                    "a size; give one of the two")
         for net in list(self.wire) + list(self.activity):
             if net not in driver and net not in self.inputs and net not in fanout:
                 raise CircuitError(f"net {net!r} has settings but is not used by any gate")
@@ -278,7 +301,7 @@ class Circuit:
                     ready.append(m)
         if len(order) < len(self.gates):
             raise CircuitError("combinational loop through gates " + " -> ".join(
-                self._find_cycle(driver, {n for n, d in indeg.items() if d > 0})))
+                repr(g) for g in self._find_cycle(driver, {n for n, d in indeg.items() if d > 0})))
         return order
 
     def _find_cycle(self, driver: Mapping[str, str], left: set[str]) -> list[str]:
@@ -374,8 +397,12 @@ def chain(
 
 
 def _finite(value: float, what: str) -> None:
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+    if isinstance(value, bool) or not isinstance(value, numbers.Real) or not math.isfinite(value):
         raise CircuitError(f"{what} must be a finite number, got {value!r}")
+
+
+def _opt_float(value: float | None) -> float | None:
+    return None if value is None else float(value)
 
 
 def _nonnegative(value: float, what: str) -> None:

@@ -97,7 +97,7 @@ def test_builder_missing_load():
     "call, match",
     [
         (lambda c: c.add_gate("u9", "inv", ["a"], "z", size=-1.0), r"gate 'u9': size must be > 0"),
-        (lambda c: c.add_gate("u9", "inv", ["a"], "z", copies=0), r"copies must be > 0"),
+        (lambda c: c.add_gate("u9", "inv", ["a"], "z", copies=0), r"copies must be >= 1"),
         (lambda c: c.add_output("z", load=-2.0), r"output 'z': load must be >= 0, got -2.0"),
         (lambda c: c.add_input("b", drive=-1.0), r"input 'b': drive must be > 0"),
         (lambda c: c.set_net("n1", wire=-0.5), r"net 'n1': wire must be >= 0"),
@@ -246,7 +246,7 @@ def test_toml_output_load_is_required():
         ("load = 4.0", "load = -4.0", "load =", r"output 'y': load must be >= 0, got -4.0"),
         ('output = "n1"', 'output = "n1"\nsize = -2', "size =", r"gate 'u1': size must be > 0"),
         ('net = "a"', 'net = "a"\ncap = 0.0', "cap =", r"input 'a': cap must be > 0"),
-        ('output = "y"\n', 'output = "y"\ncopies = -3\n', "copies =", r"copies must be > 0"),
+        ('output = "y"\n', 'output = "y"\ncopies = -3\n', "copies =", r"copies must be >= 1"),
     ],
 )
 def test_toml_negative_values(old, new, needle, match):

@@ -107,10 +107,8 @@ class ConicSizer:
         tv = np.flatnonzero(varying)
         S = sp.csr_matrix((np.ones(len(tv)), (m.term_owner[tv], np.arange(len(tv)))),
                           shape=(m.n, len(tv)))
-        effort = S @ cp.exp(A[tv] @ self.z + b[tv]) + const_load / np.exp(
-            np.where(free, 0.0, y_fixed))  # fixed owners: divide constant load by their size
-        # fixed owner terms already carry -y_owner in b, so const_load is load/x for them; free
-        # owners with constant terms do not exist (a term with a free owner varies)
+        # constant terms have a fixed owner, and b already carries -y_owner: they are C/x
+        effort = S @ cp.exp(A[tv] @ self.z + b[tv]) + const_load
         d = m.p / self.ts + effort
         cons = [self.D >= self.a[m.out_node] + m.out_allow / self.ts]
         E = sp.csr_matrix((np.ones(len(m.edge_src)), (np.arange(len(m.edge_src)), m.edge_dst)),
