@@ -152,7 +152,8 @@ class Circuit:
             )
         missing = [p for p in gtype.pins if p not in conn]
         if missing:
-            raise CircuitError(f"gate {name!r}: pin {missing[0]!r} of {gtype.name} is not connected")
+            raise CircuitError(
+                f"gate {name!r}: pin {missing[0]!r} of {gtype.name} is not connected")
         for key, value in (("size", size), ("size_min", size_min), ("size_max", size_max)):
             if value is not None:
                 _positive(value, f"gate {name!r}: {key}")

@@ -1,4 +1,4 @@
-"""Builders of standard structures: random layered networks and adder carry networks."""
+"""Random layered networks for tests and benchmarks (invented data)."""
 
 from __future__ import annotations
 
@@ -41,7 +41,7 @@ def random_layered(
             made += 1
         levels.append(level)
     used = {net for g in c.gates.values() for net in g.inputs.values()}
-    for k, net in enumerate(inputs):
+    for net in inputs:
         if net not in used:
             del c.inputs[net]
     for g in c.gates.values():

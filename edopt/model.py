@@ -17,7 +17,6 @@ import numpy as np
 import scipy.sparse as sp
 
 from .circuit import Circuit
-from .errors import CircuitError
 from .technology import Technology
 
 
@@ -150,8 +149,6 @@ def compile_model(circuit: Circuit, tech: Technology) -> Model:
             i = index[gname]
             gtype = circuit.gate_type(circuit.gates[gname].type)
             g_pin = efforts_cache[gtype.name].g[gtype.pins.index(pin)]
-            if circuit.gates[gname].size is not None:
-                raise CircuitError(f"input {net!r}: cap fixes gate {gname!r}, which also has a size")
             lo[i] = hi[i] = port.cap / (g_pin * copies[i])
 
     pin_node_a = np.asarray(pin_node, dtype=np.int64)

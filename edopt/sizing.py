@@ -14,6 +14,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+import scipy.sparse as sp
 
 from .circuit import Circuit
 from .errors import EdoptError, InfeasibleTarget, SolverError
@@ -130,17 +131,19 @@ class Sizing:
     def critical_path(self) -> list[str]:
         """Gate names from input to the critical output, following the latest arrivals."""
         m, ev = self.model, self.evaluation
+        a = ev.arrival_ps / m.tech.tau_ps
+        preds = sp.csr_matrix((np.ones(len(m.edge_src)), (m.edge_dst, m.edge_src)),
+                              shape=(m.n, m.n))
         node = int(m.out_node[m.out_names.index(ev.critical_output)])
-        preds: dict[int, list[int]] = {}
-        for s, d in zip(m.edge_src.tolist(), m.edge_dst.tolist()):
-            preds.setdefault(d, []).append(s)
         path = [node]
-        while preds.get(node):
-            node = max(preds[node], key=lambda k: ev.arrival_ps[k])
-            if ev.arrival_ps[node] + 1e-9 * abs(ev.arrival_ps[path[-1]]) < (
-                    np.nanmax(np.where(np.isfinite(m.t0[path[-1]]), m.t0[path[-1]] * m.tech.tau_ps,
-                                       -np.inf))):
+        while True:
+            ps = preds.indices[preds.indptr[node]:preds.indptr[node + 1]]
+            if len(ps) == 0:
                 break
+            k = int(ps[np.argmax(a[ps])])
+            if np.isfinite(m.t0[node]) and m.t0[node] >= a[k]:
+                break  # an ideal primary input arrives later than any driver
+            node = k
             path.append(node)
         return [m.names[k] for k in reversed(path) if k >= m.n_sources]
 

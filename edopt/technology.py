@@ -52,13 +52,16 @@ class Technology:
         for key in ("tau_ps", "mu", "cu_ff", "vdd_v", "alpha"):
             value = getattr(self, key)
             if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
-                raise EdoptError(f"technology {self.name!r}: {key} must be a positive number, got {value!r}")
+                raise EdoptError(
+                    f"technology {self.name!r}: {key} must be a positive number, got {value!r}")
         for key in ("p_inv", "vt_v", "leak_na"):
             value = getattr(self, key)
             if not (isinstance(value, (int, float)) and math.isfinite(value) and value >= 0):
-                raise EdoptError(f"technology {self.name!r}: {key} must be a number >= 0, got {value!r}")
+                raise EdoptError(
+                    f"technology {self.name!r}: {key} must be a number >= 0, got {value!r}")
         if self.vt_v >= self.vdd_v:
-            raise EdoptError(f"technology {self.name!r}: vt_v ({self.vt_v}) must be below vdd_v ({self.vdd_v})")
+            raise EdoptError(f"technology {self.name!r}: vt_v ({self.vt_v}) must be below "
+                             f"vdd_v ({self.vdd_v})")
 
     @property
     def energy_unit_fj(self) -> float:
@@ -119,7 +122,7 @@ def technology(name_or_path: str | Path | Technology | None = None) -> Technolog
 
 
 def load_technology(path: str | Path) -> Technology:
-    """Read a TOML technology file: a ``[technology]`` table (or top-level keys) of Technology fields."""
+    """Read a TOML technology file: a ``[technology]`` table (or top-level keys)."""
     path = Path(path)
     try:
         data = tomllib.loads(path.read_text(encoding="utf-8"))
