@@ -18,11 +18,13 @@ from .frontier import Frontier, balanced, fastest_within, frontier
 from .gates import GateType, builtin_library, explicit, from_expression
 from .sizing import CAUTION, Sizer, Sizing, parse_target, size
 from .technology import Technology, technology
+from .voltage import OperatingPoint, operating_point, voltage_frontier
 
 __all__ = [
     "CAUTION", "CaseError", "Circuit", "CircuitError", "EdoptError", "Frontier", "GateError",
     "GateType", "InfeasibleTarget", "Sizer", "Sizing", "SolverError", "Technology", "balanced",
     "builtin_library", "chain", "explicit", "fastest_within", "from_expression", "frontier",
-    "load_case", "parse_target", "size", "technology",
+    "load_case", "parse_target", "size", "technology", "OperatingPoint", "operating_point",
+    "voltage_frontier",
 ]
 __version__ = "0.1.0"

@@ -7,6 +7,8 @@ programs, so that many targets reuse them.
 
 from __future__ import annotations
 
+import copy
+import dataclasses
 import math
 import re
 from dataclasses import dataclass, field
@@ -89,6 +91,8 @@ class Sizing:
     solver_delay_ps: float
     solver_objective: float
     notes: list[str] = field(default_factory=list)
+    # dual of the delay bound with the cycle time held fixed (-dE/dT at a fixed clock)
+    bound_price: float = float("nan")
 
     # ----------------------------------------------------------- quantities
     @property
@@ -218,6 +222,21 @@ class Sizer:
         self.options = Options(max_effort=max_effort, area_max=area_max)
         self.engine = ConicSizer(self.model, self.options)
         self._fastest: Sizing | None = None
+        self._shared: dict[str, Solution] = {}   # solutions in tau units, shared by at() copies
+
+    def at(self, tech: Technology) -> Sizer:
+        """The same circuit in a scaled technology (another supply or threshold), reusing the
+        compiled program: in tau units the sizing problem does not depend on the voltage; only
+        the delay unit, the energy unit and leakage change."""
+        tech = technology(tech)
+        if (tech.mu, tech.p_inv) != (self.tech.mu, self.tech.p_inv):
+            raise EdoptError("Sizer.at: mu and p_inv must match (they change the logical "
+                             "efforts); build a new Sizer instead")
+        new = copy.copy(self)
+        new.tech = tech
+        new.model = dataclasses.replace(self.model, tech=tech)
+        new._fastest = None
+        return new
 
     # ------------------------------------------------------------ weights
     def weights(self, cycle_ps: float) -> np.ndarray:
@@ -247,7 +266,9 @@ class Sizer:
         if self._fastest is None:
             m = self.model
             w = self.weights(self.cycle_ps or 1.0)
-            sol = self.engine.fastest(w)
+            sol = self._shared.get("fastest")
+            if sol is None:
+                sol = self._shared["fastest"] = self.engine.fastest(w)
             if sol.status == INFEASIBLE:
                 raise InfeasibleTarget(
                     f"circuit {self.circuit.name!r}: no sizing satisfies the size bounds and "
@@ -300,6 +321,7 @@ class Sizer:
                 f"target {t_ps:.2f} ps cannot be met; the minimum achievable delay is "
                 f"{d_min:.2f} ps", d_min)
         res = self._result("cheapest", sol, t_ps, d_min, cycle)
+        res.bound_price = res.price
         if self.objective == "energy" and self.cycle_ps is None:
             # leakage energy grows with the cycle time, which follows the target
             res.price = res.price - res.leakage_fj / t_ps
