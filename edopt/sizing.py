@@ -93,6 +93,10 @@ class Sizing:
     notes: list[str] = field(default_factory=list)
     # dual of the delay bound with the cycle time held fixed (-dE/dT at a fixed clock)
     bound_price: float = float("nan")
+    # discrete sizes only (edopt.discrete): continuous lower bound at the same target and the
+    # gap of this sizing above it, in percent of the bound
+    bound_fj: float | None = None
+    gap_pct: float | None = None
 
     # ----------------------------------------------------------- quantities
     @property
@@ -222,6 +226,7 @@ class Sizer:
         self.options = Options(max_effort=max_effort, area_max=area_max)
         self.engine = ConicSizer(self.model, self.options)
         self._fastest: Sizing | None = None
+        self._fastest_raw: Sizing | None = None
         self._shared: dict[str, Solution] = {}   # solutions in tau units, shared by at() copies
 
     def at(self, tech: Technology) -> Sizer:
@@ -236,6 +241,7 @@ class Sizer:
         new.tech = tech
         new.model = dataclasses.replace(self.model, tech=tech)
         new._fastest = None
+        new._fastest_raw = None
         return new
 
     # ------------------------------------------------------------ weights
@@ -268,7 +274,8 @@ class Sizer:
             w = self.weights(self.cycle_ps or 1.0)
             sol = self._shared.get("fastest")
             if sol is None:
-                sol = self._shared["fastest"] = self.engine.fastest(w)
+                # no tie-break term: the polish below sizes the gates off the critical path
+                sol = self._shared["fastest"] = self.engine.fastest(w, tie=0.0)
             if sol.status == INFEASIBLE:
                 raise InfeasibleTarget(
                     f"circuit {self.circuit.name!r}: no sizing satisfies the size bounds and "
@@ -279,6 +286,7 @@ class Sizer:
             res = self._result("fastest", sol, None, d_ps, self.cycle_ps)
             d_ps = res.delay_ps
             res.min_delay_ps = d_ps
+            self._fastest_raw = res
             if np.max(res.evaluation.slack_ps[m.gate_slice]) > 1e-6 * d_ps:
                 t_ps = d_ps * (1 + POLISH)
                 cycle = self.cycle_ps or t_ps
@@ -297,19 +305,21 @@ class Sizer:
 
     @property
     def min_delay_ps(self) -> float:
-        return self.fastest().delay_ps
+        """The minimum achievable delay (of the unpolished minimum-delay solve)."""
+        return self.fastest().min_delay_ps
 
     def cheapest(self, target: str | float) -> Sizing:
         """Minimum energy (or area) sizing with delay <= target (ps, "250ps" or "1.2x")."""
         fast = self.fastest()
-        d_min = fast.delay_ps
+        d_min = fast.min_delay_ps
         t_ps = parse_target(target, d_min)
         if t_ps < d_min * (1 - 1e-7):
             raise InfeasibleTarget(
                 f"target {t_ps:.2f} ps is below the minimum achievable delay {d_min:.2f} ps of "
                 f"{self.circuit.name!r}", d_min)
         if t_ps <= d_min * (1 + 1e-6):
-            res = self._result("cheapest", self._as_solution(fast), t_ps, d_min, self.cycle_ps)
+            raw = self._fastest_raw
+            res = self._result("cheapest", self._as_solution(raw), t_ps, d_min, self.cycle_ps)
             res.notes.append("target at the minimum delay: the minimum-delay sizing is returned")
             res.price = float("inf")
             return res
@@ -374,7 +384,7 @@ def _check_agreement(res: Sizing, constant: float) -> None:
 
 def size(
     circuit: Circuit, tech: Technology | str | None = None, target: str | float | None = None,
-    objective: str = "energy", **options: Any,
+    objective: str = "energy", sizes: Any = None, **options: Any,
 ) -> Sizing:
     """Size ``circuit``: fastest when ``target`` is None, else the cheapest meeting ``target``.
 
@@ -384,11 +394,18 @@ def size(
     tech : a Technology, a built-in name or a TOML path (default ``generic``).
     target : delay bound: ps as a number, ``"250ps"``, ``"0.25ns"`` or ``"1.2x"`` the minimum.
     objective : "energy" or "area".
+    sizes : allowed sizes (discrete drive strengths): one list for every gate, such as
+        ``[1, 2, 4, 8, 16]``, or a mapping gate type -> list (``"*"`` for the types not named).
+        The continuous problem is solved within the range of the sets, then discretised
+        (``edopt.discrete``); every size of the result is from its set (gates of fixed size keep
+        theirs), ``bound_fj`` is the continuous lower bound at the same target and ``gap_pct``
+        the gap above it. Relative targets are then multiples of the fastest discrete delay.
     options : passed to Sizer (``cycle_ps``, ``max_effort``, ``area_max``).
 
     Raises
     ------
-    InfeasibleTarget : the target is below the minimum delay (carries ``min_delay_ps``).
+    InfeasibleTarget : the target is below the minimum delay (carries ``min_delay_ps``; with
+        ``sizes``, the fastest discrete delay found).
 
     Examples
     --------
@@ -397,6 +414,10 @@ def size(
     >>> round(r.delay_ps / 3.0, 6)   # tau units of the generic technology
     15.0
     """
+    if sizes is not None:
+        from .discrete import DiscreteSizer
+
+        return DiscreteSizer(circuit, tech, sizes, objective=objective, **options).solve(target)
     sizer = Sizer(circuit, tech, objective=objective, **options)
     return sizer.fastest() if target is None else sizer.cheapest(target)
 

@@ -322,7 +322,7 @@ def _two_outputs_on_path() -> Circuit:
 
 def _with_drive() -> Circuit:
     c = chain(["nand2", "inv"], cin=1.0, cload=10.0)
-    c.add_input("g1_B", drive=2.0)
+    c.inputs["g1_B"].drive = 2.0
     return c
 
 
@@ -340,7 +340,7 @@ def _fixed_size() -> Circuit:
 
 def _late_side() -> Circuit:
     c = chain(["inv", "nand2"], cin=1.0, cload=10.0)
-    c.add_input("g2_B", arrival_ps=50.0)
+    c.inputs["g2_B"].arrival_ps = 50.0
     return c
 
 
