@@ -174,7 +174,6 @@ class Reference:
         m = self.m
         cycle = target_ps if cycle_ps is None else cycle_ps
         T = target_ps / m.tech.tau_ps
-        nf = len(self.free)
         if z0 is None:
             z0 = np.log(self.fastest()[0][self.free])
         e0 = self.energy_fj(self.x_of(z0), cycle)
