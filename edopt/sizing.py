@@ -276,12 +276,19 @@ class Sizer:
             if sol is None:
                 # no tie-break term: the polish below sizes the gates off the critical path
                 sol = self._shared["fastest"] = self.engine.fastest(w, tie=0.0)
+            limits = "the size bounds and input-capacitance limits"
+            if self.options.max_effort is not None:
+                limits += f", the stage-effort limit {self.options.max_effort:g}"
+            if self.options.area_max is not None:
+                limits += f", the area budget {self.options.area_max:g}"
             if sol.status == INFEASIBLE:
                 raise InfeasibleTarget(
-                    f"circuit {self.circuit.name!r}: no sizing satisfies the size bounds and "
-                    "input-capacitance limits together (check cap_max against size_min)")
+                    f"circuit {self.circuit.name!r}: no sizing satisfies {limits} together "
+                    "(check cap_max against size_min, and loosen the limits)")
             if sol.status == FAILED:
-                raise SolverError(f"minimum-delay solve failed ({'; '.join(sol.attempts)})")
+                raise SolverError(
+                    f"circuit {self.circuit.name!r}: the minimum-delay solve failed "
+                    f"({'; '.join(sol.attempts)}); if {limits} cannot all be met, loosen them")
             d_ps = sol.delay_tau * m.tech.tau_ps
             res = self._result("fastest", sol, None, d_ps, self.cycle_ps)
             d_ps = res.delay_ps
@@ -290,7 +297,12 @@ class Sizer:
             if np.max(res.evaluation.slack_ps[m.gate_slice]) > 1e-6 * d_ps:
                 t_ps = d_ps * (1 + POLISH)
                 cycle = self.cycle_ps or t_ps
-                pol = self.engine.cheapest(m.to_tau(t_ps), self.weights(cycle))
+                # shared by at() copies: the polish is solved once, with this technology's
+                # weights (other supplies differ only in the small leakage share)
+                pol = self._shared.get("polish")
+                if pol is None:
+                    pol = self._shared["polish"] = self.engine.cheapest(
+                        m.to_tau(t_ps), self.weights(cycle))
                 if pol.status == OPTIMAL:
                     polished = self._result("fastest", pol, None, d_ps, cycle)
                     if polished.status == OPTIMAL and polished.delay_ps <= t_ps * (1 + 1e-9):
