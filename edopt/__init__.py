@@ -14,9 +14,11 @@ from .errors import (
     SolverError,
 )
 from .formats.case import load_case
+from .formats.verilog import read_verilog
 from .frontier import Frontier, balanced, fastest_within, frontier
 from .gates import GateType, builtin_library, explicit, from_expression
 from .sizing import CAUTION, Sizer, Sizing, parse_target, size
+from .structures import generate
 from .technology import Technology, technology
 from .voltage import OperatingPoint, operating_point, voltage_frontier
 
@@ -25,6 +27,6 @@ __all__ = [
     "GateType", "InfeasibleTarget", "Sizer", "Sizing", "SolverError", "Technology", "balanced",
     "builtin_library", "chain", "explicit", "fastest_within", "from_expression", "frontier",
     "load_case", "parse_target", "size", "technology", "OperatingPoint", "operating_point",
-    "voltage_frontier",
+    "voltage_frontier", "read_verilog", "generate",
 ]
 __version__ = "0.1.0"

@@ -53,7 +53,16 @@ def _safe(name: str) -> str:
 
 
 def _load(args: argparse.Namespace) -> Case:
-    case = load_case(args.case)
+    """A TOML case, or a structural Verilog netlist (``.v``, with ``--top``)."""
+    path = Path(args.case)
+    if path.suffix.lower() in (".v", ".vg", ".verilog"):
+        from .formats.verilog import read_verilog
+
+        circuit = read_verilog(path, top=getattr(args, "top", None),
+                               cell_map=getattr(args, "cell_map", None))
+        case = Case(circuit, technology(None), None, path, "structural Verilog netlist")
+    else:
+        case = load_case(path)
     if getattr(args, "tech", None):
         case.tech = technology(args.tech)
     return case
@@ -340,6 +349,36 @@ def cmd_sweep(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+# ------------------------------------------------------------------------------- generate
+def cmd_generate(args: argparse.Namespace) -> int:
+    from .formats.case import write_case
+    from .structures import describe, generate, structure_names
+
+    if args.structure is None:
+        for name in structure_names():
+            print(f"{name:<18}{describe(name)}")
+        return EXIT_OK
+    params: dict[str, Any] = {}
+    for item in args.param:
+        key, sep, value = item.partition("=")
+        if not sep or not key:
+            raise EdoptError(f"--param {item!r}: write it as name=value, e.g. bits=32")
+        try:
+            params[key.replace("-", "_")] = int(value)
+        except ValueError:
+            try:
+                params[key.replace("-", "_")] = float(value)
+            except ValueError:
+                params[key.replace("-", "_")] = value
+    circuit = generate(args.structure, **params)
+    text = write_case(circuit, None, args.out, description=f"generated {args.structure}")
+    if args.out is None:
+        sys.stdout.write(text)
+    else:
+        print(f"wrote {args.out}: {len(circuit.gates)} gates", file=sys.stderr)
+    return EXIT_OK
+
+
 # --------------------------------------------------------------------------------- supply
 def cmd_supply(args: argparse.Namespace) -> int:
     from .report import voltage_figures as vfig
@@ -463,9 +502,12 @@ def build_parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="command", metavar="COMMAND", required=True)
 
     def case_args(q: argparse.ArgumentParser) -> None:
-        q.add_argument("case", help="TOML case file")
+        q.add_argument("case", help="TOML case file, or a structural Verilog netlist (.v)")
         q.add_argument("--tech", metavar="NAME|FILE",
                        help="technology instead of the case's own (built-in name or TOML file)")
+        q.add_argument("--top", metavar="MODULE", help="top module of a Verilog netlist")
+        q.add_argument("--cell-map", metavar="FILE",
+                       help="TOML cell map for a Verilog netlist (default: yosys generic cells)")
 
     def solve_args(q: argparse.ArgumentParser) -> None:
         q.add_argument("--max-effort", type=_positive, metavar="F",
@@ -515,6 +557,15 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--quiet", action="store_true", help="no progress lines on stderr")
     q.add_argument("--json", action="store_true", help="print JSON only")
     q.set_defaults(func=cmd_sweep)
+
+    q = sub.add_parser("generate", help="write a standard structure as a case file",
+                       description="Build a standard structure (adders, decoders, trees, ...) "
+                                   "and write it as a TOML case; without a name, list them.")
+    q.add_argument("structure", nargs="?", help="structure name (omit to list them)")
+    q.add_argument("--param", action="append", default=[], metavar="NAME=VALUE",
+                   help="structure parameter, e.g. --param bits=32 (repeatable)")
+    q.add_argument("--out", metavar="FILE", help="case file to write (default: stdout)")
+    q.set_defaults(func=cmd_generate)
 
     q = sub.add_parser("supply", help="choose supply and threshold flavour with the sizes",
                        description="Search supplies and threshold flavours for the least energy "

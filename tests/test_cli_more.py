@@ -1,0 +1,53 @@
+"""Command line: standard structures and Verilog netlists as cases."""
+
+import json
+import shutil
+import subprocess
+from pathlib import Path
+
+import pytest
+
+from edopt.cli import main
+
+RTL = Path(__file__).resolve().parent / "rtl"
+
+
+def test_generate_lists_and_writes_a_case(tmp_path, capsys):
+    assert main(["generate"]) == 0
+    assert "kogge-stone" in capsys.readouterr().out
+    out = tmp_path / "bk.toml"
+    assert main(["generate", "brent-kung", "--param", "bits=8", "--out", str(out)]) == 0
+    assert main(["size", str(out), "--target", "1.2x", "--json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["status"] == "optimal" and doc["delay_ps"] <= doc["target_ps"] * (1 + 1e-6)
+
+
+@pytest.mark.parametrize("argv, match", [
+    (["generate", "nosuch"], "unknown structure"),
+    (["generate", "decoder", "--param", "bits"], "name=value"),
+])
+def test_generate_bad_input(argv, match, capsys):
+    assert main(argv) == 2
+    err = capsys.readouterr().err
+    assert match in err and "Traceback" not in err
+
+
+def test_size_a_synthesised_netlist(tmp_path, capsys):
+    if shutil.which("yosys") is None:
+        pytest.skip("yosys is not installed (apt-get install yosys); CI installs it")
+    netlist = tmp_path / "adder.v"
+    script = (f"read_verilog {RTL / 'adder.v'}; synth -flatten -top adder; "
+              "abc -g AND,NAND,OR,NOR,XOR,XNOR,ANDNOT,ORNOT,MUX,AOI3,OAI3,AOI4,OAI4; "
+              f"opt_clean; write_verilog -noattr {netlist}")
+    subprocess.run(["yosys", "-q", "-p", script], check=True)
+    assert main(["size", str(netlist), "--top", "adder", "--target", "1.3x", "--json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["status"] == "optimal" and doc["delay_ps"] <= doc["target_ps"] * (1 + 1e-6)
+
+
+def test_unknown_cell_in_netlist(tmp_path, capsys):
+    bad = tmp_path / "bad.v"
+    bad.write_text("module x(input a, output y);\n  FOO u1(.A(a), .Y(y));\nendmodule\n")
+    assert main(["size", str(bad)]) == 2
+    err = capsys.readouterr().err
+    assert f"{bad}:2" in err and "FOO" in err and "Traceback" not in err
