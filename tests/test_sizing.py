@@ -63,11 +63,13 @@ def test_parse_target_rejects(text):
 
 
 def test_area_objective_and_energy_objective_differ(net):
-    e = edopt.size(net, target="1.3x")
-    a = edopt.size(net, target="1.3x", objective="area")
+    e = edopt.size(net, target="1.05x")
+    a = edopt.size(net, target="1.05x", objective="area")
     assert a.area <= e.area * (1 + 1e-6)
     assert e.energy_fj <= a.energy_fj * (1 + 1e-6)
-    assert np.isnan(a.price_fj_per_ps) and a.price > 0
+    # the bound is active at 1.05x (some gate above its minimum size), so the area has a price
+    assert (a.table.at_bound != "min").any()
+    assert np.isnan(a.price_fj_per_ps) and a.price > 1e-6
 
 
 def test_max_effort_limit_is_met(net):
@@ -132,7 +134,8 @@ def test_barrier_solver_agrees_with_conic():
         b = barrier.cheapest(f1.delay_tau * r, w, warm=False)
         assert b.status == "optimal"
         assert b.objective == pytest.approx(a.objective, rel=1e-5)
-        assert b.price == pytest.approx(a.price, rel=1e-3, abs=1e-9)
+        # an inactive bound has price 0; interior-point solvers leave a residue near 1e-8
+        assert b.price == pytest.approx(a.price, rel=1e-3, abs=1e-7)
         assert evaluate(m, b.x).circuit_delay_ps <= f1.delay_tau * r * m.tech.tau_ps * (1 + 1e-7)
 
 
