@@ -17,6 +17,7 @@ from scipy.optimize import brentq, minimize_scalar
 
 from .circuit import Circuit
 from .errors import EdoptError, InfeasibleTarget
+from .parallel import default_workers, solve_bounds
 from .sizing import CAUTION, Sizer, Sizing, parse_target
 from .technology import Technology
 
@@ -121,7 +122,8 @@ def _row(res: Sizing, d_min: float) -> dict:
 def frontier(
     circuit: Circuit | Sizer, tech: Technology | str | None = None, points: int = 25,
     span: float = 2.0, objective: str = "energy",
-    progress: Callable[[int, int, Sizing | None], None] | None = None, **options,
+    progress: Callable[[int, int, Sizing | None], None] | None = None,
+    workers: int | None = None, **options,
 ) -> Frontier:
     """Sweep the delay bound from the minimum delay to ``span`` times it.
 
@@ -130,7 +132,10 @@ def frontier(
     circuit : the network, or a Sizer to reuse its compiled programs.
     points : number of rows including the minimum-delay point.
     span : largest bound as a multiple of the minimum delay.
-    progress : called as ``progress(done, total, sizing_or_None)`` after each point.
+    progress : called as ``progress(done, total, sizing_or_None)`` after each point (points
+        may finish out of order when several workers run).
+    workers : processes for the sweep; ``None`` = one per core on networks of 300 gates or
+        more (each worker compiles the program once), else serial.
 
     Returns
     -------
@@ -141,23 +146,53 @@ def frontier(
     fast = sizer.fastest()
     d_min = fast.min_delay_ps
     targets = sweep_targets(d_min, points, span)
-    rows = [_row(fast, d_min)]
-    done: list[Sizing | None] = [fast]
-    errors: dict[int, str] = {}
     total = len(targets) + 1
+    results: dict[int, Sizing | EdoptError] = {0: fast}
+    count = 1
     if progress:
         progress(1, total, fast)
+    jobs, pending = [], {}
     for k, t in enumerate(targets, start=1):
         try:
-            res = sizer.cheapest(float(t))
-            rows.append(_row(res, d_min))
-            done.append(res)
+            req = sizer.request(float(t))
         except EdoptError as exc:
-            errors[k] = str(exc)
-            rows.append({"target_ps": float(t), "relative_delay": np.nan, "status": "failed"})
-            done.append(None)
+            results[k] = exc
+            continue
+        if isinstance(req, Sizing):
+            results[k] = req
+        else:
+            pending[k] = req
+            jobs.append((k, sizer.model.to_tau(req[0]), req[2]))
+    n_workers = default_workers(sizer.model, len(jobs)) if workers is None else workers
+    if n_workers > 1 and len(jobs) > 1:
+        answers = solve_bounds(sizer.model, sizer.options, jobs, n_workers)
+    else:
+        answers = ((k, sizer.engine.cheapest(b, w)) for k, b, w in jobs)
+    for k, sol in answers:
+        t_ps, cycle, _ = pending[k]
+        try:
+            if isinstance(sol, BaseException):
+                raise EdoptError(f"solve at {t_ps:.2f} ps failed: {sol}")
+            results[k] = sizer.finish(sol, t_ps, cycle)
+        except EdoptError as exc:
+            results[k] = exc
+        count += 1
         if progress:
-            progress(k + 1, total, done[-1])
+            got = results[k]
+            progress(count, total, got if isinstance(got, Sizing) else None)
+    rows = []
+    done: list[Sizing | None] = []
+    errors: dict[int, str] = {}
+    for k in range(total):
+        got = results.get(k)
+        if isinstance(got, Sizing):
+            rows.append(_row(got, d_min))
+            done.append(got)
+        else:
+            errors[k] = str(got)
+            rows.append({"target_ps": float(targets[k - 1]), "relative_delay": np.nan,
+                         "status": "failed"})
+            done.append(None)
     table = pd.DataFrame(rows, columns=COLUMNS)
     table.index.name = "point"
     return Frontier(table, done, fast, sizer, errors)

@@ -322,6 +322,15 @@ class Sizer:
 
     def cheapest(self, target: str | float) -> Sizing:
         """Minimum energy (or area) sizing with delay <= target (ps, "250ps" or "1.2x")."""
+        req = self.request(target)
+        if isinstance(req, Sizing):
+            return req
+        t_ps, cycle, w = req
+        return self.finish(self.engine.cheapest(self.model.to_tau(t_ps), w), t_ps, cycle)
+
+    def request(self, target: str | float) -> Sizing | tuple[float, float, np.ndarray]:
+        """Check a target and prepare its solve: ``(t_ps, cycle_ps, weights)``, or the answer
+        itself when the target is the minimum delay. Raises InfeasibleTarget below it."""
         fast = self.fastest()
         d_min = fast.min_delay_ps
         t_ps = parse_target(target, d_min)
@@ -336,8 +345,11 @@ class Sizer:
             res.price = float("inf")
             return res
         cycle = self.cycle_ps or t_ps
-        w = self.weights(cycle)
-        sol = self.engine.cheapest(self.model.to_tau(t_ps), w)
+        return t_ps, cycle, self.weights(cycle)
+
+    def finish(self, sol: Solution, t_ps: float, cycle: float) -> Sizing:
+        """Turn a solver answer for target ``t_ps`` into a re-timed Sizing."""
+        d_min = self.fastest().min_delay_ps
         if sol.status == INFEASIBLE:
             raise InfeasibleTarget(
                 f"target {t_ps:.2f} ps cannot be met; the minimum achievable delay is "

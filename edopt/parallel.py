@@ -1,0 +1,58 @@
+"""Solve many delay bounds of one compiled model on several cores.
+
+Each worker process compiles the model's program once (the model arrays are sent once, at
+start-up) and then solves the bounds it is given; answers come back as plain Solutions and are
+re-timed in the calling process, so the independent evaluation stays where the results are
+reported. Used by frontier sweeps on networks large enough for the start-up to pay off.
+"""
+
+from __future__ import annotations
+
+import multiprocessing
+import os
+from collections.abc import Iterator, Sequence
+from concurrent.futures import ProcessPoolExecutor, as_completed
+
+import numpy as np
+
+from .model import Model
+from .solvers.conic import ConicSizer, Options, Solution
+
+PARALLEL_MIN_GATES = 300     # below this a serial sweep is faster than starting workers
+
+_ENGINE: ConicSizer | None = None
+
+
+def _start(model: Model, options: Options) -> None:
+    global _ENGINE
+    os.environ.setdefault("OMP_NUM_THREADS", "1")
+    _ENGINE = ConicSizer(model, options)
+
+
+def _solve(k: int, bound_tau: float, weights: np.ndarray) -> tuple[int, Solution]:
+    assert _ENGINE is not None
+    return k, _ENGINE.cheapest(bound_tau, weights)
+
+
+def default_workers(model: Model, jobs: int) -> int:
+    """Worker processes for ``jobs`` solves: one per core when the network is large enough."""
+    if model.n - model.n_sources < PARALLEL_MIN_GATES or jobs < 4:
+        return 1
+    return max(1, min(os.cpu_count() or 1, jobs))
+
+
+def solve_bounds(model: Model, options: Options, jobs: Sequence[tuple[int, float, np.ndarray]],
+                 workers: int) -> Iterator[tuple[int, Solution | BaseException]]:
+    """Yield ``(index, Solution or the exception)`` as each job ``(index, bound, weights)`` ends.
+
+    Jobs are handed out in order so each worker moves along the frontier."""
+    # a fresh server process forks the workers: no solver threads of this process are copied
+    ctx = multiprocessing.get_context("forkserver")
+    with ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_start,
+                             initargs=(model, options)) as pool:
+        futures = {pool.submit(_solve, k, b, w): k for k, b, w in jobs}
+        for fut in as_completed(futures):
+            try:
+                yield fut.result()
+            except Exception as exc:  # a failed point keeps the others
+                yield futures[fut], exc
