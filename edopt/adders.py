@@ -119,7 +119,9 @@ class _Net:
 
     def cost(self, signal: str, positive: bool) -> int:
         have = self.nets[signal]
-        return self.depth[have[positive]] if positive in have else self.depth[have[not positive]] + 1
+        if positive in have:
+            return self.depth[have[positive]]
+        return self.depth[have[not positive]] + 1
 
 
 def prefix_adder(

@@ -201,7 +201,8 @@ def test_toml_unknown_pin():
 
 
 def test_toml_unknown_pin_in_sub_table():
-    text = BASE.replace('inputs = { A = "n1" }\noutput = "y"', 'output = "y"\n[gate.inputs]\nQ = "n1"')
+    text = BASE.replace('inputs = { A = "n1" }\noutput = "y"',
+                        'output = "y"\n[gate.inputs]\nQ = "n1"')
     fails(text, r"has no pin 'Q'", line_of(text, "[gate.inputs]"))
 
 
