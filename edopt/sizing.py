@@ -97,6 +97,8 @@ class Sizing:
     # gap of this sizing above it, in percent of the bound
     bound_fj: float | None = None
     gap_pct: float | None = None
+    # the sized circuit (for netlist export and SPICE verification)
+    circuit: Circuit | None = field(default=None, repr=False, compare=False)
 
     # ----------------------------------------------------------- quantities
     @property
@@ -377,6 +379,7 @@ class Sizer:
             min_delay_ps=d_min, price=price, model=m, evaluation=ev, solver=sol.solver,
             attempts=list(sol.attempts), seconds=sol.seconds,
             solver_delay_ps=sol.delay_tau * m.tech.tau_ps, solver_objective=sol.objective,
+            circuit=self.circuit,
         )
         _check_agreement(res, self._constant())
         return res

@@ -250,3 +250,9 @@ def _toml_key(key: str) -> str:
     if key.replace("_", "").replace("-", "").isalnum() and key.isascii():
         return key
     return '"' + key.replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+
+# characterised built-ins shipped as package data (edopt/technologies/*.toml); regenerate with
+# `python -m edopt.spice characterize` (see docs/spice.md)
+_PACKAGED_DIR = Path(__file__).resolve().parent / "technologies"
+BUILTIN["sky130-tt"] = load_technology(_PACKAGED_DIR / "sky130_tt.toml")
