@@ -138,8 +138,9 @@ class Sizing:
         return pd.Series(self.evaluation.x[m.gate_slice], index=list(m.gate_names), name="size")
 
     @property
-    def critical_path(self) -> list[str]:
-        """Gate names from input to the critical output, following the latest arrivals."""
+    def critical_nodes(self) -> list[int]:
+        """Model node indices of the critical path, from its start (a source node when the
+        path starts at a driven input) to the critical output, following the latest arrivals."""
         m, ev = self.model, self.evaluation
         a = ev.arrival_ps / m.tech.tau_ps
         preds = sp.csr_matrix((np.ones(len(m.edge_src)), (m.edge_dst, m.edge_src)),
@@ -155,7 +156,13 @@ class Sizing:
                 break  # an ideal primary input arrives later than any driver
             node = k
             path.append(node)
-        return [m.names[k] for k in reversed(path) if k >= m.n_sources]
+        return path[::-1]
+
+    @property
+    def critical_path(self) -> list[str]:
+        """Gate names from input to the critical output, following the latest arrivals."""
+        m = self.model
+        return [m.names[k] for k in self.critical_nodes if k >= m.n_sources]
 
     @property
     def table(self) -> pd.DataFrame:

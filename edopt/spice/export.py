@@ -27,7 +27,6 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.sparse as sp
 
 from ..circuit import Circuit
 from ..errors import CircuitError, EdoptError
@@ -78,21 +77,7 @@ def resolve_circuit(result: Sizing, circuit: Circuit | None) -> Circuit:
 def critical_nodes(result: Sizing) -> list[int]:
     """Model node indices of the critical path from its start (a source node when the path
     starts at a driven input) to the critical output."""
-    m, ev = result.model, result.evaluation
-    a = ev.arrival_ps / m.tech.tau_ps
-    preds = sp.csr_matrix((np.ones(len(m.edge_src)), (m.edge_dst, m.edge_src)), shape=(m.n, m.n))
-    node = int(m.out_node[m.out_names.index(ev.critical_output)])
-    path = [node]
-    while True:
-        ps = preds.indices[preds.indptr[node]:preds.indptr[node + 1]]
-        if len(ps) == 0:
-            break
-        k = int(ps[np.argmax(a[ps])])
-        if np.isfinite(m.t0[node]) and m.t0[node] >= a[k]:
-            break
-        node = k
-        path.append(node)
-    return path[::-1]
+    return result.critical_nodes
 
 
 def network_type(gtype: GateType) -> GateType:
