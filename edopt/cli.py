@@ -228,6 +228,8 @@ def cmd_size(args: argparse.Namespace) -> int:
     target = _resolve_target(args.target, case, default_to_case=False)
     if args.objective == "area" and (args.budget_fj is not None or args.balance is not None):
         raise EdoptError("--budget-fj and --balance work on energy; drop --objective area")
+    if args.strengths:
+        return _size_discrete(case, args, target)
     sizer = _sizer(case, args, args.objective)
     fast = sizer.fastest()
     if args.budget_fj is not None:
@@ -249,6 +251,50 @@ def cmd_size(args: argparse.Namespace) -> int:
         print("\n".join(report_lines(res, case=case.circuit.name, baseline=fast)))
         if args.gates_csv:
             print(f"per-gate table written to {args.gates_csv}")
+    return EXIT_OK
+
+
+def _parse_strengths(text: str) -> list[float] | dict[str, list[float]]:
+    """``"1,2,4,8"`` for every gate, or ``"inv=1,2,4,8;nand2=1,2,4;*=1,2"`` per gate type."""
+    def numbers(part: str) -> list[float]:
+        try:
+            values = [float(v) for v in part.split(",") if v.strip()]
+        except ValueError:
+            raise EdoptError(f"--strengths {text!r}: sizes must be numbers, e.g. 1,2,4,8") from None
+        if not values:
+            raise EdoptError(f"--strengths {text!r}: give at least one size")
+        return values
+    if "=" not in text:
+        return numbers(text)
+    sets: dict[str, list[float]] = {}
+    for item in text.split(";"):
+        name, sep, part = item.partition("=")
+        if not sep or not name.strip():
+            raise EdoptError(f"--strengths {text!r}: write type=1,2,4;type=... ")
+        sets[name.strip()] = numbers(part)
+    return sets
+
+
+def _size_discrete(case: Case, args: argparse.Namespace, target: str | None) -> int:
+    from .report.tables import report_lines, write_gates
+    from .sizing import size
+
+    if args.budget_fj is not None or args.balance is not None or args.objective == "area":
+        raise EdoptError("--strengths works with --target (or the fastest sizing) on energy")
+    res = size(case.circuit, case.tech, target=target, sizes=_parse_strengths(args.strengths),
+               cycle_ps=args.cycle_ps, max_effort=args.max_effort)
+    if res.status not in ("optimal", "feasible"):   # discrete sizings are "feasible"
+        _status_warning(res, "discrete sizing")
+    if args.gates_csv:
+        write_gates(res, args.gates_csv)
+    if args.json:
+        _json_out({"case": case.circuit.name, "technology": case.tech.name, **res.to_dict(),
+                   "bound_fj": res.bound_fj, "gap_pct": res.gap_pct})
+        return EXIT_OK
+    print("\n".join(report_lines(res, case=case.circuit.name)))
+    if res.bound_fj is not None:
+        print(f"discrete     continuous lower bound {res.bound_fj:.2f} fJ, gap "
+              f"{res.gap_pct:.2f} %")
     return EXIT_OK
 
 
@@ -537,6 +583,10 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--objective", choices=("energy", "area"), default="energy",
                    help="what --target minimises (default energy)")
     solve_args(q)
+    q.add_argument("--strengths", metavar="LIST",
+                   help='discrete drive strengths: "1,2,4,8,16" for every gate, or '
+                        '"inv=1,2,4,8;nand2=1,2,4;*=1,2" per type; reports the continuous '
+                        "lower bound and the gap")
     q.add_argument("--gates-csv", metavar="FILE", help="write the per-gate table as CSV")
     q.add_argument("--json", action="store_true", help="print JSON only")
     q.set_defaults(func=cmd_size)

@@ -51,3 +51,19 @@ def test_unknown_cell_in_netlist(tmp_path, capsys):
     assert main(["size", str(bad)]) == 2
     err = capsys.readouterr().err
     assert f"{bad}:2" in err and "FOO" in err and "Traceback" not in err
+
+
+def test_size_with_discrete_strengths(capsys):
+    case = Path(__file__).resolve().parent.parent / "cases" / "decoder.toml"
+    assert main(["size", str(case), "--target", "1.3x", "--strengths", "1,2,4,8,16,32",
+                 "--json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert set(doc["sizes"].values()) <= {1.0, 2.0, 4.0, 8.0, 16.0, 32.0}
+    assert doc["delay_ps"] <= doc["target_ps"] * (1 + 1e-9)
+    assert doc["energy_fj"] >= doc["bound_fj"] and doc["gap_pct"] >= 0
+
+
+def test_bad_strengths(capsys):
+    case = Path(__file__).resolve().parent.parent / "cases" / "decoder.toml"
+    assert main(["size", str(case), "--strengths", "1,two"]) == 2
+    assert "sizes must be numbers" in capsys.readouterr().err
