@@ -228,7 +228,7 @@ def cmd_size(args: argparse.Namespace) -> int:
     target = _resolve_target(args.target, case, default_to_case=False)
     if args.objective == "area" and (args.budget_fj is not None or args.balance is not None):
         raise EdoptError("--budget-fj and --balance work on energy; drop --objective area")
-    if args.strengths:
+    if args.strengths or case.strengths:
         return _size_discrete(case, args, target)
     sizer = _sizer(case, args, args.objective)
     fast = sizer.fastest()
@@ -281,7 +281,8 @@ def _size_discrete(case: Case, args: argparse.Namespace, target: str | None) -> 
 
     if args.budget_fj is not None or args.balance is not None or args.objective == "area":
         raise EdoptError("--strengths works with --target (or the fastest sizing) on energy")
-    res = size(case.circuit, case.tech, target=target, sizes=_parse_strengths(args.strengths),
+    sets = _parse_strengths(args.strengths) if args.strengths else case.strengths
+    res = size(case.circuit, case.tech, target=target, sizes=sets,
                cycle_ps=args.cycle_ps, max_effort=args.max_effort)
     if res.status not in ("optimal", "feasible"):   # discrete sizings are "feasible"
         _status_warning(res, "discrete sizing")

@@ -67,3 +67,18 @@ def test_bad_strengths(capsys):
     case = Path(__file__).resolve().parent.parent / "cases" / "decoder.toml"
     assert main(["size", str(case), "--strengths", "1,two"]) == 2
     assert "sizes must be numbers" in capsys.readouterr().err
+
+
+def test_case_file_strengths(tmp_path, capsys):
+    src = (Path(__file__).resolve().parent.parent / "cases" / "mixed_chain.toml").read_text()
+    case = tmp_path / "chain.toml"
+    extra = "target = \"1.2x\"\nstrengths = [1, 2, 4, 8, 16, 32, 64]"
+    case.write_text(src.replace("target = \"1.2x\"", extra))
+    assert main(["size", str(case), "--target", "case", "--json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    free = {k: v for k, v in doc["sizes"].items() if k != "u1"}   # u1 is fixed by its input cap
+    assert set(free.values()) <= {1.0, 2.0, 4.0, 8.0, 16.0, 32.0, 64.0}
+    assert doc["gap_pct"] is not None and doc["gap_pct"] >= 0
+    case.write_text(src.replace('target = "1.2x"', 'target = "1.2x"\nstrengths = [0, 2]'))
+    assert main(["size", str(case)]) == 2
+    assert "strengths must be" in capsys.readouterr().err

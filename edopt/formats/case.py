@@ -50,6 +50,8 @@ SCHEMA: dict[str, dict[str, tuple[str, str, str]]] = {
         "size_max": ("num", "x", f"default upper size bound (default {DEFAULT_SIZE_MAX:g})"),
         "activity": ("num", "1/op", f"default rising-output probability ({DEFAULT_ACTIVITY})"),
         "target": ("str", "ps or x", 'default delay target, "250ps" or "1.2x" the minimum'),
+        "strengths": ("num_list", "x", "discrete drive strengths of every gate (default: "
+                      "continuous sizes); edopt size then discretises"),
     },
     "gate_type": {
         "name": ("str", "-", "type name used by [[gate]] type (case-insensitive)"),
@@ -120,6 +122,7 @@ class Case:
     target: str | None = None
     path: Path | None = None
     description: str = ""
+    strengths: list[float] | None = None
 
 
 def parse_target(text: str) -> tuple[float, str]:
@@ -363,7 +366,12 @@ class _Reader:
                 entry = self.check_entry(section, index, entry)
                 getattr(self, f"add_{section}")(circuit, index, entry)
         self.validate(circuit)
-        return Case(circuit, tech, target, None, case.get("description", ""))
+        strengths = case.get("strengths")
+        if strengths is not None and (not strengths or min(strengths) <= 0):
+            raise self.fail("[case]: strengths must be a non-empty list of sizes > 0",
+                            "case", 0, "strengths")
+        return Case(circuit, tech, target, None, case.get("description", ""),
+                    None if strengths is None else [float(v) for v in strengths])
 
     def read_technology(self, case: dict[str, Any], table: Any) -> Technology:
         ref = case.get("technology")
