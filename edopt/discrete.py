@@ -1335,6 +1335,12 @@ class DiscreteSizer:
             self._fast_result = None
 
     @property
+    def fastest_seconds(self) -> float | None:
+        """Seconds the discrete minimum-delay search took (its continuous start excluded), or
+        None while it has not run (large networks run it only when they need it)."""
+        return None if self._fast is None else self._fast[2]
+
+    @property
     def min_delay_ps(self) -> float:
         """The fastest discrete delay found (ps)."""
         return float(self.model.to_ps(self._fastest_k()[1]))
