@@ -600,10 +600,7 @@ class _Search:
                 move = self._timed_repair_move(k, st, w, bound, can_up, can_dn)
                 if move is None:
                     break
-                k = k.copy()
-                for i, step in move:
-                    k[i] += step
-                    (went_up if step > 0 else went_down)[i] = True
+                k = _apply_moves(k, move, went_up, went_down)
                 st = self.state(k, bound)
                 continue
             take_dn = ok_dn & (~ok_up | (gain_dn >= 0))
@@ -650,10 +647,7 @@ class _Search:
                                                movable & ~went_up)
                 if move is None:
                     break
-                k = k.copy()
-                for i, step in move:
-                    k[i] += step
-                    (went_up if step > 0 else went_down)[i] = True
+                k = _apply_moves(k, move, went_up, went_down)
                 st = self.state(k, bound)
                 continue
             went_up[taken[~take_dn[taken]]] = True
@@ -1605,3 +1599,13 @@ def _draw_staircase(plt: Any, cont: pd.DataFrame, disc: pd.DataFrame,
         out.append(target)
     plt.close(fig)
     return out
+
+
+def _apply_moves(k: np.ndarray, moves, went_up: np.ndarray, went_down: np.ndarray) -> np.ndarray:
+    """A copy of the size indices ``k`` with the few timed ``(gate, step)`` moves applied,
+    marking each moved gate as upsized or downsized."""
+    k = k.copy()
+    for i, step in moves:
+        k[i] += step
+        (went_up if step > 0 else went_down)[i] = True
+    return k

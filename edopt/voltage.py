@@ -156,10 +156,7 @@ def sensitivities(res: Sizing, base: Technology, vt: float, cycle_ps: float) -> 
 def _base_sizer(circuit: Circuit | Sizer, tech: Technology | str | None,
                 cycle_ps: float | None) -> Sizer:
     if isinstance(circuit, Sizer):
-        sizer = circuit
-        if cycle_ps is not None:
-            sizer = dataclasses.replace(sizer) if False else _with_cycle(sizer, cycle_ps)
-        return sizer
+        return circuit if cycle_ps is None else _with_cycle(circuit, cycle_ps)
     return Sizer(circuit, tech, "energy", cycle_ps=cycle_ps)
 
 
