@@ -19,7 +19,7 @@ from typing import Any
 
 from .errors import EdoptError, InfeasibleTarget
 from .formats.case import Case, load_case
-from .sizing import CAUTION, Sizer, Sizing, parse_target
+from .sizing import CAUTION, ENGINES, LARGE_GATES, Sizer, Sizing, parse_target
 from .technology import technology
 
 __all__ = ["build_parser", "main"]
@@ -91,7 +91,8 @@ def _resolve_target(value: str | None, case: Case, default_to_case: bool) -> str
 def _sizer(case: Case, args: argparse.Namespace, objective: str = "energy") -> Sizer:
     return Sizer(case.circuit, case.tech, objective=objective,
                  cycle_ps=getattr(args, "cycle_ps", None),
-                 max_effort=getattr(args, "max_effort", None))
+                 max_effort=getattr(args, "max_effort", None),
+                 engine=getattr(args, "engine", "auto"), gap_pct=getattr(args, "gap_pct", 0.1))
 
 
 def _status_warning(s: Sizing, what: str) -> None:
@@ -561,6 +562,11 @@ def build_parser() -> argparse.ArgumentParser:
                        help="upper limit of every stage effort C_L/x (a slope limit)")
         q.add_argument("--cycle-ps", type=_positive, metavar="PS",
                        help="clock period for the leakage energy (default: the delay target)")
+        q.add_argument("--engine", choices=ENGINES, default="auto",
+                       help="reference (interior point), large (certified gap, for 10^4-10^6 "
+                            f"gates) or auto: large above {LARGE_GATES} gates (default)")
+        q.add_argument("--gap-pct", type=_positive, default=0.1, metavar="PCT",
+                       help="large engine: stop at this certified gap in percent (default 0.1)")
 
     q = sub.add_parser("check", help="validate a case and summarise it",
                        description="Validate a case and summarise it; for a pure chain also "

@@ -164,6 +164,8 @@ def frontier(
             pending[k] = req
             jobs.append((k, sizer.model.to_tau(req[0]), req[2]))
     n_workers = default_workers(sizer.model, len(jobs)) if workers is None else workers
+    if sizer.engine_name == "large":
+        n_workers = 1   # the large engine warm-starts each bound from its neighbour, in order
     if n_workers > 1 and len(jobs) > 1:
         answers = solve_bounds(sizer.model, sizer.options, jobs, n_workers)
     else:

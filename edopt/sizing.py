@@ -22,6 +22,7 @@ from .circuit import Circuit
 from .errors import EdoptError, InfeasibleTarget, SolverError
 from .model import Model, compile_model
 from .solvers.conic import FAILED, INACCURATE, INFEASIBLE, OPTIMAL, ConicSizer, Options, Solution
+from .solvers.large import GAP, LargeSizer, LargeSolution
 from .technology import Technology, technology
 from .timing import Evaluation, evaluate
 
@@ -31,6 +32,8 @@ CAUTION = (
 )
 AGREEMENT_RTOL = 1e-5   # solver delay / objective versus the independent evaluation
 POLISH = 1e-3           # delay allowance of the polished minimum-delay sizing (relative)
+LARGE_GATES = 2000      # engine="auto": the large engine above this many free gates
+ENGINES = ("auto", "reference", "large")
 
 _TARGET = re.compile(r"^\s*([0-9]*\.?[0-9]+(?:[eE][-+]?[0-9]+)?)\s*(ps|ns|x)?\s*$")
 
@@ -97,6 +100,13 @@ class Sizing:
     # gap of this sizing above it, in percent of the bound
     bound_fj: float | None = None
     gap_pct: float | None = None
+    # large engine (edopt.solvers.large): certified lower bound on the continuous optimum
+    # (``lower_bound_fj`` for cheapest, ``lower_bound_ps`` on the minimum delay for fastest), the
+    # gap above it (``gap_pct``) and the quasi-Newton iterations spent
+    engine: str = "reference"
+    lower_bound_fj: float | None = None
+    lower_bound_ps: float | None = None
+    iterations: int | None = None
     # the sized circuit (for netlist export and SPICE verification)
     circuit: Circuit | None = field(default=None, repr=False, compare=False)
 
@@ -196,7 +206,9 @@ class Sizing:
             "price_fj_per_ps": _num(self.price_fj_per_ps), "intensity": _num(self.intensity),
             "critical_output": self.evaluation.critical_output, "solver": self.solver,
             "attempts": self.attempts, "seconds": self.seconds, "notes": self.notes,
-            "caution": CAUTION,
+            "engine": self.engine, "lower_bound_fj": self.lower_bound_fj,
+            "lower_bound_ps": self.lower_bound_ps, "gap_pct": self.gap_pct,
+            "iterations": self.iterations, "caution": CAUTION,
         }
 
     def to_dict(self) -> dict[str, Any]:
@@ -218,22 +230,36 @@ class Sizer:
     cycle_ps : clock period for the leakage energy; ``None`` = the delay target of each solve.
     max_effort : upper limit of each gate's stage effort C_L / x (a transition-time limit).
     area_max : budget of the area proxy.
+    engine : "reference" (cvxpy interior point, exact to about 1e-7), "large" (the large-scale
+        engine with a certified gap, ``edopt.solvers.large``) or "auto": large above
+        ``LARGE_GATES`` free gates when the circuit has no limit only the reference takes
+        (input-capacitance limit, ``max_effort``, ``area_max``).
+    gap_pct : large engine: stop when the certified gap is within this many percent (0.1).
     """
 
     def __init__(
         self, circuit: Circuit, tech: Technology | str | None = None, objective: str = "energy",
         cycle_ps: float | None = None, max_effort: float | None = None,
-        area_max: float | None = None,
+        area_max: float | None = None, engine: str = "auto", gap_pct: float = 100 * GAP,
     ) -> None:
         if objective not in ("energy", "area"):
             raise EdoptError(f"objective must be 'energy' or 'area', got {objective!r}")
+        if engine not in ENGINES:
+            raise EdoptError(f"engine must be one of {', '.join(ENGINES)}; got {engine!r}")
         self.circuit = circuit
         self.tech = technology(tech)
         self.objective = objective
         self.cycle_ps = cycle_ps
         self.model = compile_model(circuit, self.tech)
         self.options = Options(max_effort=max_effort, area_max=area_max)
-        self.engine = ConicSizer(self.model, self.options)
+        if engine == "auto":
+            limited = max_effort is not None or area_max is not None or self.model.cap_max.size
+            engine = "large" if int(np.sum(~self.model.fixed)) > LARGE_GATES and not limited \
+                else "reference"
+        self.engine_name = engine
+        self.engine: ConicSizer | LargeSizer = (
+            LargeSizer(self.model, self.options, gap=gap_pct / 100) if engine == "large"
+            else ConicSizer(self.model, self.options))
         self._fastest: Sizing | None = None
         self._fastest_raw: Sizing | None = None
         self._shared: dict[str, Solution] = {}   # solutions in tau units, shared by at() copies
@@ -282,7 +308,10 @@ class Sizer:
             m = self.model
             w = self.weights(self.cycle_ps or 1.0)
             sol = self._shared.get("fastest")
-            if sol is None:
+            if sol is None and self.engine_name == "large":
+                # the large engine's own tie-break sizes the gates off the critical path
+                sol = self._shared["fastest"] = self.engine.fastest(w)
+            elif sol is None:
                 # no tie-break term: the polish below sizes the gates off the critical path
                 sol = self._shared["fastest"] = self.engine.fastest(w, tie=0.0)
             limits = "the size bounds and input-capacitance limits"
@@ -303,7 +332,8 @@ class Sizer:
             d_ps = res.delay_ps
             res.min_delay_ps = d_ps
             self._fastest_raw = res
-            if np.max(res.evaluation.slack_ps[m.gate_slice]) > 1e-6 * d_ps:
+            if self.engine_name == "reference" and \
+                    np.max(res.evaluation.slack_ps[m.gate_slice], initial=0.0) > 1e-6 * d_ps:
                 t_ps = d_ps * (1 + POLISH)
                 cycle = self.cycle_ps or t_ps
                 # shared by at() copies: the polish is solved once, with this technology's
@@ -343,6 +373,11 @@ class Sizer:
         fast = self.fastest()
         d_min = fast.min_delay_ps
         t_ps = parse_target(target, d_min)
+        if t_ps < d_min * (1 - 1e-7) and fast.lower_bound_ps is not None:
+            raise InfeasibleTarget(
+                f"target {t_ps:.2f} ps is below the minimum delay {d_min:.2f} ps that the large "
+                f"engine reaches for {self.circuit.name!r} (no sizing is faster than "
+                f"{fast.lower_bound_ps:.2f} ps, certified)", d_min)
         if t_ps < d_min * (1 - 1e-7):
             raise InfeasibleTarget(
                 f"target {t_ps:.2f} ps is below the minimum achievable delay {d_min:.2f} ps of "
@@ -386,8 +421,15 @@ class Sizer:
             min_delay_ps=d_min, price=price, model=m, evaluation=ev, solver=sol.solver,
             attempts=list(sol.attempts), seconds=sol.seconds,
             solver_delay_ps=sol.delay_tau * m.tech.tau_ps, solver_objective=sol.objective,
-            circuit=self.circuit,
+            circuit=self.circuit, engine=self.engine_name,
         )
+        if isinstance(sol, LargeSolution):
+            res.iterations = sol.iterations
+            res.gap_pct = 100 * sol.gap if np.isfinite(sol.gap) else None
+            if problem == "fastest":
+                res.lower_bound_ps = float(m.to_ps(sol.lower))
+            elif np.isfinite(sol.lower):
+                res.lower_bound_fj = sol.lower + self._constant()
         _check_agreement(res, self._constant())
         return res
 

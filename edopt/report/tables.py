@@ -161,6 +161,11 @@ def report_lines(
     if frontier is not None:
         lines.append(f"frontier     {frontier.summary_text()}")
     lines.append(f"status       {s.status} ({s.solver}, {s.seconds:.2f} s)")
+    if s.engine == "large" and s.gap_pct is not None:
+        bound = (f"{s.lower_bound_ps:.2f} ps" if s.lower_bound_ps is not None
+                 else f"{s.lower_bound_fj:.2f} fJ")
+        lines.append(f"certificate  certified lower bound {bound}, gap {s.gap_pct:.3f} %, "
+                     f"{s.iterations} iterations (large engine)")
     lines += [f"note         {n}" for n in s.notes]
     lines.append(f"caution      {CAUTION}")
     return lines

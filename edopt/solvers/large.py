@@ -1,0 +1,385 @@
+"""Large-scale engine: smoothed timing, quasi-Newton steps and a certified optimality gap.
+
+For networks far beyond what the interior-point reference handles (10^5-10^6 gates), every
+iteration is a few vectorised passes over the timing graph, level by level (no loop over gates):
+
+* **Smoothed timing.** The maximum at each node's inputs is replaced by a log-sum-exp of
+  sharpness ``beta`` (1/tau). The smoothed arrival times are convex in the log sizes and never
+  below the true ones, and their adjoints (one backward pass) are *flows*: arc weights that
+  conserve at every node, exactly the multipliers of a Lagrangian relaxation of the timing
+  constraints.
+* **Steps.** For a multiplier ``lam`` of the delay bound, ``w @ x + lam * D_smooth`` is minimised
+  over the log sizes within their bounds by L-BFGS-B (scipy), one forward and one backward pass
+  per evaluation. ``lam`` is adjusted (bracketed regula falsi in log ``lam``) until the *true*
+  re-timed delay meets the bound; the sharpness grows until the gap closes.
+* **Certificate.** With the node flows ``mu = lam * adjoint`` the Lagrangian's minimum over the
+  sizes is a lower bound on the optimum (weak duality). The inner problem is convex in log sizes,
+  so its value at the computed sizes plus the least value of its linearisation over the size box
+  bounds that minimum from below, whatever the accuracy of the steps. The relative gap between
+  the (feasible) sizing and that bound is the stopping rule.
+* **Warm starts.** Each answer keeps its log sizes, multiplier and sharpness; the next bound of a
+  sweep starts from the nearest one solved.
+
+Supported constraints: size bounds, fixed sizes (fixed nodes), input drivers of fixed size,
+output loads and time allowances, wire capacitance, activity factors (all inside the Model).
+Input-capacitance limits, stage-effort limits and area budgets are not: the reference engine
+takes those.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.optimize import minimize
+
+from ..errors import EdoptError
+from ..model import Model
+from .conic import FAILED, INACCURATE, INFEASIBLE, OPTIMAL, Options, Solution
+
+GAP = 1e-3              # default stopping rule: relative gap to the certified bound
+SHARP_START = 25.0      # first sharpness, in units of levels / delay (beta * T / depth)
+SHARP_GROWTH = 4.0      # sharpness grows by this factor while the gap is open
+SHARP_STAGES = 5        # at most this many sharpness stages (25 ... 6,400)
+DELAY_RTOL = 5e-5       # the true delay ends in [bound * (1 - DELAY_RTOL), bound]
+SECANT_MAX = 16         # multiplier updates per sharpness stage
+STEP_ITERS = 4000       # L-BFGS-B iterations per inner minimisation (at most)
+STEP_FTOL = 1e-10       # L-BFGS-B relative decrease that ends an inner minimisation
+MEMORY = 10             # L-BFGS-B correction pairs
+BOUND_SWEEPS = 30       # closed-form sweeps that tighten the certified bound
+TIE = 1e-5              # fastest: weight of the normalised objective beside the delay
+LAM_RANGE = 1e12        # multipliers beyond this factor of the first guess: bound unreachable
+
+
+@dataclass
+class LargeSolution(Solution):
+    """A Solution with its certificate.
+
+    ``lower``: certified lower bound (objective units of the weights for ``cheapest``, tau for
+    ``fastest``); ``gap``: relative gap of the answer above it; ``iterations``: L-BFGS-B
+    iterations (each a forward and a backward pass); ``evaluations`` of the smoothed model.
+    """
+
+    lower: float = float("nan")
+    gap: float = float("nan")
+    iterations: int = 0
+    evaluations: int = 0
+    warm: tuple | None = field(default=None, repr=False)
+
+
+class SmoothTiming:
+    """Arrival times of a Model with exact or log-sum-exp maxima, and their adjoints.
+
+    Start times of nodes that also have fan-in become *pseudo nodes* (indices n..N) of constant
+    arrival, so that every maximum is over arcs.
+    """
+
+    def __init__(self, model: Model) -> None:
+        m = self.model = model
+        n = m.n
+        src, dst = m.edge_src, m.edge_dst
+        finite = np.isfinite(m.t0)
+        has_in = np.bincount(dst, minlength=n) > 0
+        mixed = np.flatnonzero(finite & has_in)
+        self.N = n + mixed.size
+        self.pseudo_t0 = m.t0[mixed]
+        self.roots = ~has_in
+        self.start = np.where(finite & ~has_in, m.t0, 0.0)
+        src = np.concatenate([src, n + np.arange(mixed.size)])
+        dst = np.concatenate([dst, mixed])
+        order = np.lexsort((dst, m.level[dst]))
+        self.src, self.dst = src[order], dst[order]
+        key = m.level[self.dst]
+        cuts = np.concatenate([[0], np.flatnonzero(np.diff(key)) + 1, [key.size]])
+        self.levels = []
+        for s, e in zip(cuts[:-1].tolist(), cuts[1:].tolist()):
+            nodes, srcs = self.dst[s:e], self.src[s:e]
+            first = np.concatenate([[0], np.flatnonzero(np.diff(nodes)) + 1])
+            count = np.diff(np.append(first, e - s))
+            perm = np.argsort(srcs, kind="stable")
+            by_src = srcs[perm]
+            heads = np.concatenate([[0], np.flatnonzero(np.diff(by_src)) + 1])
+            self.levels.append((s, e, nodes[first], first, count, perm, by_src[heads], heads))
+        self.P = m.pin_load.tocsr()
+        self.PT = m.pin_load.T.tocsr()
+
+    def delays(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Node delays (tau) and loads (C_u)."""
+        load = self.P @ x + self.model.fixed_load
+        return self.model.p + load / x, load
+
+    def true_delay(self, d: np.ndarray) -> float:
+        a = np.empty(self.N)
+        a[:self.model.n] = self.start + d
+        a[self.model.n:] = self.pseudo_t0
+        for s, e, u, first, *_ in self.levels:
+            a[u] = np.maximum.reduceat(a[self.src[s:e]], first) + d[u]
+        m = self.model
+        return float(np.max(a[m.out_node] + m.out_allow))
+
+    def smooth(self, d: np.ndarray, beta: float) -> tuple[float, np.ndarray, np.ndarray]:
+        """Smoothed circuit delay, its adjoint per node (``N`` entries: the node flows of a unit
+        flow to the outputs) and the share of that flow at each output."""
+        m = self.model
+        a = np.empty(self.N)
+        a[:m.n] = self.start + d
+        a[m.n:] = self.pseudo_t0
+        share = np.empty(self.src.size)
+        for s, e, u, first, count, *_ in self.levels:
+            v = a[self.src[s:e]]
+            top = np.maximum.reduceat(v, first)
+            z = np.exp(beta * (v - np.repeat(top, count)))
+            total = np.add.reduceat(z, first)
+            share[s:e] = z / np.repeat(total, count)
+            a[u] = top + np.log(total) / beta + d[u]
+        v = a[m.out_node] + m.out_allow
+        top = float(v.max())
+        z = np.exp(beta * (v - top))
+        out_share = z / z.sum()
+        flow = np.zeros(self.N)
+        np.add.at(flow, m.out_node, out_share)
+        for s, e, u, _first, count, perm, heads_node, heads in reversed(self.levels):
+            part = (np.repeat(flow[u], count) * share[s:e])[perm]
+            flow[heads_node] += np.add.reduceat(part, heads)
+        return top + math.log(z.sum()) / beta, flow, out_share
+
+    def start_value(self, flow: np.ndarray, out_share: np.ndarray) -> float:
+        """Constant part of the Lagrangian per unit flow: start times and output allowances."""
+        m = self.model
+        return float(flow[:m.n][self.roots] @ self.start[self.roots]
+                     + flow[m.n:] @ self.pseudo_t0 + out_share @ m.out_allow)
+
+
+class LargeSizer:
+    """The cheapest and fastest problems of one Model by the large-scale method (module doc).
+
+    ``gap``: relative gap at which a solve stops (default 0.1 %). Answers carry ``lower``,
+    ``gap`` and ``iterations``; ``status`` is optimal when the certified gap is within ``gap``.
+    """
+
+    def __init__(self, model: Model, options: Options | None = None, gap: float = GAP) -> None:
+        options = options or Options()
+        unsupported = []
+        if options.max_effort is not None:
+            unsupported.append("a stage-effort limit (max_effort)")
+        if options.area_max is not None:
+            unsupported.append("an area budget (area_max)")
+        if model.cap_max.size:
+            unsupported.append(f"input-capacitance limits ({', '.join(model.cap_names)})")
+        if unsupported:
+            raise EdoptError(
+                "the large engine does not take " + " or ".join(unsupported)
+                + "; use engine='reference' (or drop the limit)")
+        if not 0 < gap < 1:
+            raise EdoptError(f"the gap must be a fraction between 0 and 1, got {gap!r}")
+        self.model = model
+        self.gap = float(gap)
+        self.timing = SmoothTiming(model)
+        self.free = ~model.fixed
+        self.log_lo, self.log_hi = np.log(model.lo), np.log(model.hi)
+        self.depth = max(1, int(model.level.max()) if model.n else 1)
+        self._y0 = np.log(np.clip(np.ones(model.n), model.lo, model.hi))
+        self._states: list[tuple[float, np.ndarray, float, float]] = []
+        self._fast_y: np.ndarray | None = None
+        self.warm = True
+
+    # ------------------------------------------------------------- pieces
+    def _minimise(self, y: np.ndarray, w: np.ndarray, lam: float, beta: float,
+                  count: list[int]) -> np.ndarray:
+        """Minimise ``w @ x + lam * D_smooth`` over the free log sizes from ``y``."""
+        t, free = self.timing, self.free
+        y = y.copy()
+        scale = 1.0 / max(float(w @ np.exp(y)) + lam * t.true_delay(t.delays(np.exp(y))[0]),
+                          1e-300)
+
+        def value_grad(z: np.ndarray) -> tuple[float, np.ndarray]:
+            count[1] += 1
+            y[free] = z
+            x = np.exp(y)
+            d, load = t.delays(x)
+            delay, flow, _ = t.smooth(d, beta)
+            mu = lam * flow[:self.model.n]
+            grad = w * x + x * (t.PT @ (mu / x)) - mu * load / x
+            return scale * (float(w @ x) + lam * delay), scale * grad[free]
+
+        res = minimize(value_grad, y[free], jac=True, method="L-BFGS-B",
+                       bounds=list(zip(self.log_lo[free], self.log_hi[free])),
+                       options={"maxiter": STEP_ITERS, "ftol": STEP_FTOL, "gtol": 1e-12,
+                                "maxcor": MEMORY})
+        count[0] += int(res.nit)
+        y[free] = res.x
+        return y
+
+    def _bound(self, mu: np.ndarray, w: np.ndarray, x: np.ndarray) -> float:
+        """Certified lower bound of ``min_x w @ x + mu @ d(x)`` over the size box."""
+        t, m, free = self.timing, self.model, self.free
+        best = -math.inf
+        for sweep in range(BOUND_SWEEPS + 1):
+            d, load = t.delays(x)
+            grad = w * x + x * (t.PT @ (mu / x)) - mu * load / x
+            z = np.log(x)
+            corr = np.minimum(grad * (self.log_lo - z), grad * (self.log_hi - z))
+            best = max(best, float(w @ x + mu @ d) + float(corr[free].sum()))
+            if sweep == BOUND_SWEEPS:
+                break
+            down = w + t.PT @ (mu / x)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                new = np.sqrt(mu * load / down)
+            new = np.clip(np.nan_to_num(new, nan=0.0, posinf=np.inf), m.lo, m.hi)
+            x = np.where(free, np.sqrt(x * new), x)
+        return best
+
+    def _beta(self, delay: float, sharp: float) -> float:
+        return sharp * self.depth / max(delay, 1e-12)
+
+    # ------------------------------------------------------------- problems
+    def fastest(self, weights: np.ndarray | None = None, tie: float = TIE) -> LargeSolution:
+        """Least delay; off-critical gates take their cheapest sizes through a small ``tie``
+        weight of ``weights @ x``. ``lower`` bounds the minimum delay (tau)."""
+        t0 = time.perf_counter()
+        m, t = self.model, self.timing
+        w = m.e_lin if weights is None else np.asarray(weights, dtype=float)
+        count = [0, 0]
+        y = self._y0.copy()
+        d0 = t.true_delay(t.delays(np.exp(y))[0])
+        sharp, lower, delay, gap = SHARP_START, -math.inf, math.inf, math.inf
+        for _ in range(SHARP_STAGES):
+            beta = self._beta(d0, sharp)
+            e0 = max(float(w @ np.exp(y)), 1e-300)
+            y = self._minimise(y, w * (tie * d0 / e0), 1.0, beta, count)
+            x = np.exp(y)
+            d, _ = t.delays(x)
+            delay = t.true_delay(d)
+            _, flow, share = t.smooth(d, beta)
+            lower = max(lower, self._bound(flow[:m.n], np.zeros(m.n), x)
+                        + t.start_value(flow, share))
+            gap = (delay - lower) / lower
+            d0 = delay
+            if gap <= self.gap:
+                break
+            sharp *= SHARP_GROWTH
+        self._fast_y = y.copy()
+        status = OPTIMAL if gap <= self.gap else INACCURATE
+        return LargeSolution(
+            np.exp(y), delay, delay, 0.0, status, "large", time.perf_counter() - t0,
+            [f"large: {count[0]} iterations, certified gap {gap:.2e} ({status})"],
+            lower=lower, gap=gap, iterations=count[0], evaluations=count[1])
+
+    def cheapest(self, bound_tau: float, weights: np.ndarray) -> LargeSolution:
+        """Least ``weights @ x`` with the true delay <= ``bound_tau``; ``lower`` bounds it."""
+        t0 = time.perf_counter()
+        m, t = self.model, self.timing
+        T = float(bound_tau)
+        w = np.asarray(weights, dtype=float)
+        count = [0, 0]
+        # the cheapest sizing of all (every free gate at its lower bound) may meet the bound
+        x_lo = np.where(self.free, m.lo, np.exp(self._y0))
+        d_lo = t.true_delay(t.delays(x_lo)[0])
+        if d_lo <= T:
+            energy = float(w @ x_lo)
+            return LargeSolution(
+                x_lo, d_lo, energy, 0.0, OPTIMAL, "large", time.perf_counter() - t0,
+                ["large: the bound is slack at the smallest sizes (exact optimum)"],
+                lower=energy, gap=0.0, iterations=0, evaluations=1)
+        y, lam, sharp = self._start(T, w)
+        lam_first = lam
+        lower, gap, best = -math.inf, math.inf, None
+        notes: list[str] = []
+        while sharp <= SHARP_START * SHARP_GROWTH ** (SHARP_STAGES - 1) * (1 + 1e-9):
+            beta = self._beta(T, sharp)
+            found = self._meet(y, w, lam, beta, T, count, lam_first)
+            if found is None:
+                # too close to the minimum delay for this sharpness: the smoothing's own excess
+                # keeps the bound out of reach; a sharper stage may reach it
+                notes.append(f"sharpness {sharp:g}: bound not reached")
+                sharp *= SHARP_GROWTH
+                continue
+            y, lam, x, delay = found
+            d, _ = t.delays(x)
+            _, flow, share = t.smooth(d, beta)
+            mu = lam * flow[:m.n]
+            low = self._bound(mu, w, x) + lam * (t.start_value(flow, share) - T)
+            lower = max(lower, low)
+            energy = float(w @ x)
+            if best is None or energy < best[1]:
+                best = (x, energy, delay, lam)
+            gap = (best[1] - lower) / abs(lower) if lower > 0 else math.inf
+            notes.append(f"sharpness {sharp:g}: gap {gap:.2e}")
+            if gap <= self.gap:
+                break
+            sharp *= SHARP_GROWTH
+        if best is None:
+            return LargeSolution(
+                np.exp(y), math.nan, math.nan, math.nan, INFEASIBLE, "large",
+                time.perf_counter() - t0,
+                [f"large: bound {T:.6g} tau not met at any sharpness; " + ", ".join(notes)],
+                iterations=count[0], evaluations=count[1])
+        x, energy, delay, lam = best
+        self._states.append((T, y.copy(), lam, sharp))
+        status = OPTIMAL if gap <= self.gap else INACCURATE
+        return LargeSolution(
+            x, delay, energy, lam, status, "large", time.perf_counter() - t0,
+            [f"large: {count[0]} iterations, certified gap {gap:.2e} ({status}); "
+             + ", ".join(notes)],
+            lower=lower, gap=gap, iterations=count[0], evaluations=count[1])
+
+    def _start(self, T: float, w: np.ndarray) -> tuple[np.ndarray, float, float]:
+        """Warm start from the nearest bound solved, else from the fastest sizing."""
+        if self.warm and self._states:
+            near = min(self._states, key=lambda s: abs(math.log(s[0] / T)))
+            # one stage below the neighbour's sharpness: a cheap first stage, then its own
+            return near[1].copy(), near[2], max(SHARP_START, near[3] / SHARP_GROWTH)
+        y = self._fast_y.copy() if self._fast_y is not None else self._y0.copy()
+        return y, 10.0 * max(float(w @ np.exp(y)), 1e-30) / T, SHARP_START
+
+    def _meet(self, y: np.ndarray, w: np.ndarray, lam: float, beta: float, T: float,
+              count: list[int], lam_first: float):
+        """Adjust the multiplier until the true delay is within DELAY_RTOL below ``T``.
+
+        Regula falsi (Illinois) on ``log(delay / T)`` against ``log lam``, after bracketing by
+        factors of e, e^2, e^4, ... Returns ``(y, lam, x, delay)`` of the best feasible point,
+        or None."""
+        t = self.timing
+        lo: tuple | None = None       # (log lam, residual > 0: too slow)
+        hi: tuple | None = None       # (log lam, residual <= 0: meets the bound)
+        feasible = None
+        side = 0
+        jump = 1.0
+        ll = math.log(lam)
+        for _ in range(SECANT_MAX):
+            y = self._minimise(y, w, math.exp(ll), beta, count)
+            x = np.exp(y)
+            delay = t.true_delay(t.delays(x)[0])
+            r = math.log(delay / T)
+            if r <= 0:
+                if feasible is None or r > feasible[3]:
+                    feasible = (y.copy(), math.exp(ll), x, r, delay)
+                if -r <= DELAY_RTOL:
+                    break
+                hi = (ll, r)
+                if side == -1 and lo is not None:
+                    lo = (lo[0], lo[1] / 2)
+                side = -1
+            else:
+                lo = (ll, r)
+                if side == 1 and hi is not None:
+                    hi = (hi[0], hi[1] / 2)
+                side = 1
+            if lo is None:
+                ll -= jump
+                jump *= 2
+            elif hi is None:
+                ll += jump
+                jump *= 2
+                if ll - math.log(lam_first) > math.log(LAM_RANGE):
+                    return None
+            else:
+                ll = hi[0] - hi[1] * (lo[0] - hi[0]) / (lo[1] - hi[1])
+        if feasible is None:
+            return None
+        return feasible[0], feasible[1], feasible[2], feasible[4]
+
+
+__all__ = ["GAP", "FAILED", "LargeSizer", "LargeSolution", "SmoothTiming"]
