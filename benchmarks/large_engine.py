@@ -10,10 +10,13 @@ Rows (one process per network size, so that the peak memory is that size's own):
 - peak MB: the process's peak resident memory.
 
     python benchmarks/large_engine.py [gates ...] [--frontier] [--reference N]
+    python benchmarks/large_engine.py --evaluation [gates ...]
 
 Defaults: 10,000 and 100,000 gates (add 1000000 for a million). ``--frontier``: a 25-point
 frontier of 10,000 gates (total seconds and gaps). ``--reference N``: both engines at the same
-targets on N gates (default 2,000), time and energy side by side.
+targets on N gates (default 2,000), time and energy side by side. ``--evaluation``: the time of
+one evaluation (forward and backward pass and gradient) at 10^4, 10^5 and 10^6 gates, for the
+linear growth of the time per iteration.
 """
 
 from __future__ import annotations
@@ -50,6 +53,30 @@ def one(gates: int) -> dict:
             "target s": target_s, "target it": res.iterations, "target gap %": res.gap_pct,
             "status": res.status, "ms/it": 1000 * target_s / max(res.iterations or 1, 1),
             "retimed": res.delay_ps / (FACTOR * fast.delay_ps), "peak MB": peak}
+
+
+def per_iteration(gates: int, repeats: int = 20) -> dict:
+    """Seconds of one evaluation (smoothed timing forward and backward, gradient) at a size."""
+    import numpy as np
+
+    from edopt.generators import random_layered
+    from edopt.sizing import Sizer
+
+    sizer = Sizer(random_layered(gates, seed=1), engine="large")
+    eng = sizer.engine
+    t, m = eng.timing, sizer.model
+    x = np.clip(np.exp(np.random.default_rng(0).uniform(0, 2, m.n)), m.lo, m.hi)
+    beta = eng._beta(t.true_delay(t.delays(x)[0]), 100.0)
+    t0 = time.perf_counter()
+    for _ in range(repeats):
+        d, load = t.delays(x)
+        _, flow, _ = t.smooth(d, beta)
+        mu = flow[:m.n]
+        _ = x * (t.PT @ (mu / x)) - mu * load / x
+    each = (time.perf_counter() - t0) / repeats
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    return {"gates": gates, "levels": int(m.level.max()), "ms/evaluation": 1000 * each,
+            "peak MB": peak}
 
 
 def frontier_rows(gates: int = 10_000) -> dict:
@@ -100,6 +127,17 @@ def _print(rows: list[dict]) -> None:
 def main(argv: list[str]) -> None:
     if argv[:1] == ["--one"]:
         print(json.dumps(one(int(argv[1]))))
+        return
+    if argv[:1] == ["--evaluation"]:
+        rows = []
+        for gates in [int(a) for a in argv[1:]] or [10_000, 100_000, 1_000_000]:
+            out = subprocess.run([sys.executable, __file__, "--evaluation-one", str(gates)],
+                                 check=True, capture_output=True, text=True).stdout
+            rows.append(json.loads(out.strip().splitlines()[-1]))
+        _print(rows)
+        return
+    if argv[:1] == ["--evaluation-one"]:
+        print(json.dumps(per_iteration(int(argv[1]))))
         return
     if "--frontier" in argv:
         _print([frontier_rows()])

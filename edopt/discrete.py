@@ -1229,7 +1229,8 @@ class DiscreteSizer:
         self.sets = normalise_sets(sizes)
         self.circuit = circuit
         self.sizer = Sizer(bounded_circuit(circuit, self.sets), tech, objective=objective,
-                           cycle_ps=cycle_ps, max_effort=max_effort, area_max=area_max)
+                           cycle_ps=cycle_ps, max_effort=max_effort, area_max=area_max,
+                           engine="reference")
         self.model = m = self.sizer.model
         limited = max_effort is not None or area_max is not None or m.cap_rows.shape[0] > 0
         if continuous == "auto":

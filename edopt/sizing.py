@@ -476,7 +476,10 @@ def size(
         (``edopt.discrete``); every size of the result is from its set (gates of fixed size keep
         theirs), ``bound_fj`` is the continuous lower bound at the same target and ``gap_pct``
         the gap above it. Relative targets are then multiples of the fastest discrete delay.
-    options : passed to Sizer (``cycle_ps``, ``max_effort``, ``area_max``).
+    options : passed to Sizer (``cycle_ps``, ``max_effort``, ``area_max``, ``engine``,
+        ``gap_pct``). ``engine="auto"`` (default) takes the large engine above ``LARGE_GATES``
+        free gates: its results also carry ``lower_bound_fj`` (``lower_bound_ps`` for the
+        fastest sizing), ``gap_pct`` (certified gap, percent) and ``iterations``.
 
     Raises
     ------
@@ -493,9 +496,18 @@ def size(
     if sizes is not None:
         from .discrete import DiscreteSizer
 
-        return DiscreteSizer(circuit, tech, sizes, objective=objective, **options).solve(target)
+        # the discrete search has its own continuous stage: the reference solver or, for
+        # large networks, a Lagrangian relaxation with a certified bound
+        engine = options.pop("engine", "auto")
+        options.pop("gap_pct", None)
+        if engine not in ENGINES:
+            raise EdoptError(f"engine must be one of {', '.join(ENGINES)}; got {engine!r}")
+        continuous = {"auto": "auto", "reference": "solver", "large": "lagrangian"}[engine]
+        return DiscreteSizer(circuit, tech, sizes, objective=objective, continuous=continuous,
+                             **options).solve(target)
     sizer = Sizer(circuit, tech, objective=objective, **options)
     return sizer.fastest() if target is None else sizer.cheapest(target)
 
 
-__all__ = ["CAUTION", "Sizer", "Sizing", "parse_target", "size", "OPTIMAL", "INACCURATE"]
+__all__ = ["CAUTION", "ENGINES", "LARGE_GATES", "Sizer", "Sizing", "parse_target", "size",
+           "OPTIMAL", "INACCURATE"]

@@ -401,3 +401,22 @@ def test_dumps_is_strict_json():
                   "e": [np.float32(0.5), np.bool_(True)], "f": Path("x/y")})
     assert json.loads(text) == {"a": None, "b": 3, "c": [0, 1], "d": None, "e": [0.5, True],
                                 "f": "x/y"}
+
+
+def test_size_with_the_large_engine(capsys):
+    """--engine large: the JSON carries the certified bound and gap; the text says so too."""
+    ref = run_json(capsys, "size", DECODER, "--target", "1.3x", "--engine", "reference")
+    d = run_json(capsys, "size", DECODER, "--target", "1.3x", "--engine", "large")
+    assert d["engine"] == "large" and ref["engine"] == "reference"
+    assert d["lower_bound_fj"] <= ref["energy_fj"] * (1 + 1e-6)      # reference solver
+    assert d["gap_pct"] <= 0.1 and d["iterations"] >= 0
+    ev = retime(DECODER, d["sizes"], target_ps=d["target_ps"], cycle_ps=d["target_ps"])
+    assert ev.circuit_delay_ps <= d["target_ps"] * (1 + 1e-9)             # evaluator
+    code, out, err = run(capsys, "size", DECODER, "--target", "1.3x", "--engine", "large")
+    assert code == 0, err
+    assert "certified lower bound" in out
+
+
+def test_size_large_engine_rejects_an_effort_limit(capsys):
+    code, out, err = run(capsys, "size", DECODER, "--engine", "large", "--max-effort", "6")
+    assert code == 2 and "--engine reference" in err

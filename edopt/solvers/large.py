@@ -171,7 +171,8 @@ class LargeSizer:
         if unsupported:
             raise EdoptError(
                 "the large engine does not take " + " or ".join(unsupported)
-                + "; use engine='reference' (or drop the limit)")
+                + "; use the reference engine (engine='reference', --engine reference) or drop "
+                "the limit")
         if not 0 < gap < 1:
             raise EdoptError(f"the gap must be a fraction between 0 and 1, got {gap!r}")
         self.model = model
