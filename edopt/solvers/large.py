@@ -19,6 +19,9 @@ iteration is a few vectorised passes over the timing graph, level by level (no l
   the (feasible) sizing and that bound is the stopping rule.
 * **Warm starts.** Each answer keeps its log sizes, multiplier and sharpness; the next bound of a
   sweep starts from the nearest one solved.
+* **Budget.** A solve stops after about ``BUDGET`` iterations with its best feasible answer and
+  the gap it reached (status inaccurate): within about 1 % of the minimum delay the energy is so
+  steep in the delay that the 0.1 % rule can take far longer.
 
 Supported constraints: size bounds, fixed sizes (fixed nodes), input drivers of fixed size,
 output loads and time allowances, wire capacitance, activity factors (all inside the Model).
@@ -33,23 +36,27 @@ import time
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.optimize import minimize
+from scipy.optimize import Bounds, minimize
 
 from ..errors import EdoptError
 from ..model import Model
 from .conic import FAILED, INACCURATE, INFEASIBLE, OPTIMAL, Options, Solution
+from .quasi_newton import minimise_box
 
 GAP = 1e-3              # default stopping rule: relative gap to the certified bound
 SHARP_START = 25.0      # first sharpness, in units of levels / delay (beta * T / depth)
 SHARP_GROWTH = 4.0      # sharpness grows by this factor while the gap is open
 SHARP_STAGES = 5        # at most this many sharpness stages (25 ... 6,400)
-DELAY_RTOL = 5e-5       # the true delay ends in [bound * (1 - DELAY_RTOL), bound]
+DELAY_RTOL = 1e-4       # multiplier steps that move the delay less than 1e-3 of this: done
+SLACK_SHARE = 0.25      # the unused delay may cost this share of the gap (first order)
 SECANT_MAX = 16         # multiplier updates per sharpness stage
 STEP_ITERS = 4000       # L-BFGS-B iterations per inner minimisation (at most)
-STEP_FTOL = 1e-10       # L-BFGS-B relative decrease that ends an inner minimisation
+STEP_FTOL = 1e-10       # L-BFGS-B relative decrease that ends an inner minimisation ...
+FAST_FTOL = 1e-8        # ... and the minimum-delay one (no multiplier search rides on it)
 MEMORY = 10             # L-BFGS-B correction pairs
 BOUND_SWEEPS = 30       # closed-form sweeps that tighten the certified bound
 TIE = 1e-5              # fastest: weight of the normalised objective beside the delay
+BUDGET = 8000           # iterations per solve; beyond them the best answer is returned as is
 LAM_RANGE = 1e12        # multipliers beyond this factor of the first guess: bound unreachable
 
 
@@ -123,17 +130,16 @@ class SmoothTiming:
         """Smoothed circuit delay, its adjoint per node (``N`` entries: the node flows of a unit
         flow to the outputs) and the share of that flow at each output."""
         m = self.model
-        a = np.empty(self.N)
-        a[:m.n] = self.start + d
-        a[m.n:] = self.pseudo_t0
-        share = np.empty(self.src.size)
-        for s, e, u, first, count, *_ in self.levels:
-            v = a[self.src[s:e]]
-            top = np.maximum.reduceat(v, first)
-            z = np.exp(beta * (v - np.repeat(top, count)))
-            total = np.add.reduceat(z, first)
-            share[s:e] = z / np.repeat(total, count)
-            a[u] = top + np.log(total) / beta + d[u]
+        # scaled arrivals b = beta * a: one stable log-sum-exp per level
+        b = np.empty(self.N)
+        b[:m.n] = beta * (self.start + d)
+        b[m.n:] = beta * self.pseudo_t0
+        bd = beta * d
+        for s, e, u, first, *_ in self.levels:
+            b[u] = np.logaddexp.reduceat(b[self.src[s:e]], first) + bd[u]
+        # share of each arc in its node's maximum, in one pass over all arcs
+        share = np.exp(b[self.src] - (b[self.dst] - bd[self.dst]))
+        a = b / beta
         v = a[m.out_node] + m.out_allow
         top = float(v.max())
         z = np.exp(beta * (v - top))
@@ -184,11 +190,13 @@ class LargeSizer:
         self._y0 = np.log(np.clip(np.ones(model.n), model.lo, model.hi))
         self._states: list[tuple[float, np.ndarray, float, float]] = []
         self._fast_y: np.ndarray | None = None
+        self._fast_delay: float | None = None
         self.warm = True
+        self.method = "own"     # inner steps: "own" (projected L-BFGS) or "scipy" (L-BFGS-B)
 
     # ------------------------------------------------------------- pieces
     def _minimise(self, y: np.ndarray, w: np.ndarray, lam: float, beta: float,
-                  count: list[int]) -> np.ndarray:
+                  count: list[int], ftol: float = STEP_FTOL) -> np.ndarray:
         """Minimise ``w @ x + lam * D_smooth`` over the free log sizes from ``y``."""
         t, free = self.timing, self.free
         y = y.copy()
@@ -205,10 +213,14 @@ class LargeSizer:
             grad = w * x + x * (t.PT @ (mu / x)) - mu * load / x
             return scale * (float(w @ x) + lam * delay), scale * grad[free]
 
-        res = minimize(value_grad, y[free], jac=True, method="L-BFGS-B",
-                       bounds=list(zip(self.log_lo[free], self.log_hi[free])),
-                       options={"maxiter": STEP_ITERS, "ftol": STEP_FTOL, "gtol": 1e-12,
-                                "maxcor": MEMORY})
+        lo, hi = self.log_lo[free], self.log_hi[free]
+        if self.method == "scipy":
+            res = minimize(value_grad, y[free], jac=True, method="L-BFGS-B",
+                           bounds=Bounds(lo, hi),
+                           options={"maxiter": STEP_ITERS, "ftol": ftol, "gtol": 1e-12,
+                                    "maxcor": MEMORY})
+        else:
+            res = minimise_box(value_grad, y[free], lo, hi, STEP_ITERS, ftol, MEMORY)
         count[0] += int(res.nit)
         y[free] = res.x
         return y
@@ -245,26 +257,32 @@ class LargeSizer:
         count = [0, 0]
         y = self._y0.copy()
         d0 = t.true_delay(t.delays(np.exp(y))[0])
-        sharp, lower, delay, gap = SHARP_START, -math.inf, math.inf, math.inf
+        sharp, lower, gap, ftol = SHARP_START, -math.inf, math.inf, FAST_FTOL
+        best_y, best = y, math.inf
         for _ in range(SHARP_STAGES):
             beta = self._beta(d0, sharp)
             e0 = max(float(w @ np.exp(y)), 1e-300)
-            y = self._minimise(y, w * (tie * d0 / e0), 1.0, beta, count)
+            y = self._minimise(y, w * (tie * d0 / e0), 1.0, beta, count, ftol)
             x = np.exp(y)
             d, _ = t.delays(x)
             delay = t.true_delay(d)
+            if delay < best:
+                best_y, best = y.copy(), delay
             _, flow, share = t.smooth(d, beta)
             lower = max(lower, self._bound(flow[:m.n], np.zeros(m.n), x)
                         + t.start_value(flow, share))
-            gap = (delay - lower) / lower
+            last, gap = gap, (best - lower) / lower
             d0 = delay
-            if gap <= self.gap:
+            if gap <= self.gap or count[0] > BUDGET:
                 break
+            if gap > 0.5 * last:      # the gap stalls: the steps, not the smoothing, limit it
+                ftol *= 0.1
             sharp *= SHARP_GROWTH
-        self._fast_y = y.copy()
+        self._fast_y = best_y.copy()
+        self._fast_delay = delay = best
         status = OPTIMAL if gap <= self.gap else INACCURATE
         return LargeSolution(
-            np.exp(y), delay, delay, 0.0, status, "large", time.perf_counter() - t0,
+            np.exp(best_y), delay, delay, 0.0, status, "large", time.perf_counter() - t0,
             [f"large: {count[0]} iterations, certified gap {gap:.2e} ({status})"],
             lower=lower, gap=gap, iterations=count[0], evaluations=count[1])
 
@@ -284,20 +302,24 @@ class LargeSizer:
                 x_lo, d_lo, energy, 0.0, OPTIMAL, "large", time.perf_counter() - t0,
                 ["large: the bound is slack at the smallest sizes (exact optimum)"],
                 lower=energy, gap=0.0, iterations=0, evaluations=1)
-        y, lam, sharp = self._start(T, w)
+        y, lam, sharp, jump = self._start(T, w)
         lam_first = lam
         lower, gap, best = -math.inf, math.inf, None
         notes: list[str] = []
         while sharp <= SHARP_START * SHARP_GROWTH ** (SHARP_STAGES - 1) * (1 + 1e-9):
             beta = self._beta(T, sharp)
-            found = self._meet(y, w, lam, beta, T, count, lam_first)
+            # a cold start brackets by factors of e; a warm one (a sharper stage, a neighbouring
+            # bound) starts close to the answer and brackets by 10 % first
+            found = self._meet(y, w, lam, beta, T, count, lam_first, jump)
+            jump = 0.1
             if found is None:
                 # too close to the minimum delay for this sharpness: the smoothing's own excess
                 # keeps the bound out of reach; a sharper stage may reach it
                 notes.append(f"sharpness {sharp:g}: bound not reached")
                 sharp *= SHARP_GROWTH
                 continue
-            y, lam, x, delay = found
+            # the certificate at the feasible answer, with the multiplier it was solved for
+            x, delay, lam, y, lam_next = found
             d, _ = t.delays(x)
             _, flow, share = t.smooth(d, beta)
             mu = lam * flow[:m.n]
@@ -308,8 +330,9 @@ class LargeSizer:
                 best = (x, energy, delay, lam)
             gap = (best[1] - lower) / abs(lower) if lower > 0 else math.inf
             notes.append(f"sharpness {sharp:g}: gap {gap:.2e}")
-            if gap <= self.gap:
+            if gap <= self.gap or count[0] > BUDGET:
                 break
+            lam = lam_next
             sharp *= SHARP_GROWTH
         if best is None:
             return LargeSolution(
@@ -326,38 +349,57 @@ class LargeSizer:
              + ", ".join(notes)],
             lower=lower, gap=gap, iterations=count[0], evaluations=count[1])
 
-    def _start(self, T: float, w: np.ndarray) -> tuple[np.ndarray, float, float]:
+    def _start(self, T: float, w: np.ndarray) -> tuple[np.ndarray, float, float, float]:
         """Warm start from the nearest bound solved, else from the fastest sizing."""
+        # the smoothing adds about T * log(2) / sharpness to the delay: close to the minimum
+        # delay the first stage must be sharp enough for the bound to be reachable at all
+        close = SHARP_START
+        if self._fast_delay is not None and T > self._fast_delay:
+            top = SHARP_START * SHARP_GROWTH ** (SHARP_STAGES - 1)
+            close = min(top, max(SHARP_START, 2.0 / (1.0 - self._fast_delay / T)))
         if self.warm and self._states:
+            # sizes and multiplier from the nearest bound solved; the sharpness starts afresh
+            # (a sharper smoothing than the target needs only slows the steps down)
             near = min(self._states, key=lambda s: abs(math.log(s[0] / T)))
-            # one stage below the neighbour's sharpness: a cheap first stage, then its own
-            return near[1].copy(), near[2], max(SHARP_START, near[3] / SHARP_GROWTH)
+            return near[1].copy(), near[2], close, 0.1
         y = self._fast_y.copy() if self._fast_y is not None else self._y0.copy()
-        return y, 10.0 * max(float(w @ np.exp(y)), 1e-30) / T, SHARP_START
+        # a hardware intensity of about one at the cheap end: the smallest sizes' energy / T
+        x_lo = np.where(self.free, self.model.lo, np.exp(y))
+        return y, max(float(w @ x_lo), 1e-30) / T, close, 1.0
 
     def _meet(self, y: np.ndarray, w: np.ndarray, lam: float, beta: float, T: float,
-              count: list[int], lam_first: float):
-        """Adjust the multiplier until the true delay is within DELAY_RTOL below ``T``.
+              count: list[int], lam_first: float, jump: float = 1.0):
+        """Adjust the multiplier until the true delay is just below ``T`` (its unused part worth
+        at most SLACK_SHARE of the gap).
 
         Regula falsi (Illinois) on ``log(delay / T)`` against ``log lam``, after bracketing by
-        factors of e, e^2, e^4, ... Returns ``(y, lam, x, delay)`` of the best feasible point,
-        or None."""
+        factors of e, e^2, e^4, ... Returns ``(x, delay, lam)`` of the best feasible point and
+        ``(y, lam)`` of the last step (where a sharper stage starts), or None."""
         t = self.timing
         lo: tuple | None = None       # (log lam, residual > 0: too slow)
         hi: tuple | None = None       # (log lam, residual <= 0: meets the bound)
         feasible = None
         side = 0
-        jump = 1.0
         ll = math.log(lam)
+        last = math.inf
         for _ in range(SECANT_MAX):
+            if count[0] > BUDGET and feasible is not None:
+                break
             y = self._minimise(y, w, math.exp(ll), beta, count)
             x = np.exp(y)
             delay = t.true_delay(t.delays(x)[0])
             r = math.log(delay / T)
+            if r <= 0 and (feasible is None or r > feasible[3]):
+                feasible = (y.copy(), math.exp(ll), x, r, delay)
+            if abs(r - last) < 1e-3 * DELAY_RTOL or (
+                    lo is not None and hi is not None and hi[0] - lo[0] < 1e-9):
+                break     # the steps no longer move the delay: the answer is as close as it gets
+            last = r
             if r <= 0:
-                if feasible is None or r > feasible[3]:
-                    feasible = (y.copy(), math.exp(ll), x, r, delay)
-                if -r <= DELAY_RTOL:
+                # close enough when the unused delay is worth a small part of the gap
+                # (first order: multiplier x slack) or within DELAY_RTOL
+                if math.exp(ll) * (T - delay) <= SLACK_SHARE * self.gap * float(w @ x) \
+                        or -r <= DELAY_RTOL * 1e-2:
                     break
                 hi = (ll, r)
                 if side == -1 and lo is not None:
@@ -380,7 +422,8 @@ class LargeSizer:
                 ll = hi[0] - hi[1] * (lo[0] - hi[0]) / (lo[1] - hi[1])
         if feasible is None:
             return None
-        return feasible[0], feasible[1], feasible[2], feasible[4]
+        # the feasible answer, and where the next (sharper) stage should start: the last step
+        return feasible[2], feasible[4], feasible[1], y, math.exp(ll)
 
 
 __all__ = ["GAP", "FAILED", "LargeSizer", "LargeSolution", "SmoothTiming"]
