@@ -25,7 +25,7 @@ SUMMARY_STEPS = (0.05, 0.10, 0.20)   # relaxations reported in the plain summary
 FIRST_STEP = 2e-3                    # first sweep point: 0.2 % above the minimum delay
 
 COLUMNS = ["target_ps", "relative_delay", "delay_ps", "energy_fj", "dynamic_fj", "leakage_fj",
-           "area", "price_fj_per_ps", "intensity", "status", "solver", "seconds"]
+           "area", "price_fj_per_ps", "intensity", "status", "solver", "seconds", "gap_pct"]
 
 
 @dataclass
@@ -116,6 +116,8 @@ def _row(res: Sizing, d_min: float) -> dict:
         "price_fj_per_ps": res.price_fj_per_ps if res.problem != "fastest" else np.nan,
         "intensity": res.intensity if res.problem != "fastest" else np.nan,
         "status": res.status, "solver": res.solver, "seconds": res.seconds,
+        # certified gap of the large engine (percent; empty for the reference engine)
+        "gap_pct": res.gap_pct if res.gap_pct is not None else np.nan,
     }
 
 

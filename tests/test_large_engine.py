@@ -201,6 +201,7 @@ def test_frontier_with_the_large_engine() -> None:
             assert p.energy_fj <= p.lower_bound_fj * (1 + p.gap_pct / 100) * (1 + 1e-9)
         if p.target_ps >= 1.02 * d_min:
             assert p.status == "optimal"
+    assert np.allclose(table["gap_pct"].iloc[1:], [p.gap_pct for p in front.points[1:]])
     optimal = table[table["status"] == "optimal"]
     energy = optimal["energy_fj"].to_numpy()
     # energy never rises as the bound relaxes (beyond the points' certified gaps)
