@@ -306,6 +306,10 @@ class LargeSizer:
         lam_first = lam
         lower, gap, best = -math.inf, math.inf, None
         notes: list[str] = []
+        if self._fast_y is not None and self._fast_delay is not None and self._fast_delay <= T:
+            # the minimum-delay sizing meets the bound: the answer is never worse than it
+            x_fast = np.exp(self._fast_y)
+            best = (x_fast, float(w @ x_fast), self._fast_delay, math.nan)
         while sharp <= SHARP_START * SHARP_GROWTH ** (SHARP_STAGES - 1) * (1 + 1e-9):
             beta = self._beta(T, sharp)
             # a cold start brackets by factors of e; a warm one (a sharper stage, a neighbouring
@@ -341,7 +345,8 @@ class LargeSizer:
                 [f"large: bound {T:.6g} tau not met at any sharpness; " + ", ".join(notes)],
                 iterations=count[0], evaluations=count[1])
         x, energy, delay, lam = best
-        self._states.append((T, y.copy(), lam, sharp))
+        if math.isfinite(lam):
+            self._states.append((T, y.copy(), lam, sharp))
         status = OPTIMAL if gap <= self.gap else INACCURATE
         return LargeSolution(
             x, delay, energy, lam, status, "large", time.perf_counter() - t0,
