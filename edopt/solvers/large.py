@@ -33,14 +33,14 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 from scipy.optimize import Bounds, minimize
 
 from ..errors import EdoptError
 from ..model import Model
-from .conic import FAILED, INACCURATE, INFEASIBLE, OPTIMAL, Options, Solution
+from .conic import INACCURATE, INFEASIBLE, OPTIMAL, Options, Solution
 from .quasi_newton import minimise_box
 
 GAP = 1e-3              # default stopping rule: relative gap to the certified bound
@@ -73,7 +73,6 @@ class LargeSolution(Solution):
     gap: float = float("nan")
     iterations: int = 0
     evaluations: int = 0
-    warm: tuple | None = field(default=None, repr=False)
 
 
 class SmoothTiming:
@@ -104,11 +103,10 @@ class SmoothTiming:
         for s, e in zip(cuts[:-1].tolist(), cuts[1:].tolist()):
             nodes, srcs = self.dst[s:e], self.src[s:e]
             first = np.concatenate([[0], np.flatnonzero(np.diff(nodes)) + 1])
-            count = np.diff(np.append(first, e - s))
             perm = np.argsort(srcs, kind="stable")
             by_src = srcs[perm]
             heads = np.concatenate([[0], np.flatnonzero(np.diff(by_src)) + 1])
-            self.levels.append((s, e, nodes[first], first, count, perm, by_src[heads], heads))
+            self.levels.append((s, e, nodes[first], first, perm, by_src[heads], heads))
         self.P = m.pin_load.tocsr()
         self.PT = m.pin_load.T.tocsr()
 
@@ -146,8 +144,8 @@ class SmoothTiming:
         out_share = z / z.sum()
         flow = np.zeros(self.N)
         np.add.at(flow, m.out_node, out_share)
-        for s, e, u, _first, count, perm, heads_node, heads in reversed(self.levels):
-            part = (np.repeat(flow[u], count) * share[s:e])[perm]
+        for s, e, _u, _first, perm, heads_node, heads in reversed(self.levels):
+            part = (flow[self.dst[s:e]] * share[s:e])[perm]
             flow[heads_node] += np.add.reduceat(part, heads)
         return top + math.log(z.sum()) / beta, flow, out_share
 
@@ -188,6 +186,7 @@ class LargeSizer:
         self.log_lo, self.log_hi = np.log(model.lo), np.log(model.hi)
         self.depth = max(1, int(model.level.max()) if model.n else 1)
         self._y0 = np.log(np.clip(np.ones(model.n), model.lo, model.hi))
+        self._x_lo = np.where(self.free, model.lo, np.exp(self._y0))   # the smallest sizing
         self._states: list[tuple[float, np.ndarray, float, float]] = []
         self._fast_y: np.ndarray | None = None
         self._fast_delay: float | None = None
@@ -294,7 +293,7 @@ class LargeSizer:
         w = np.asarray(weights, dtype=float)
         count = [0, 0]
         # the cheapest sizing of all (every free gate at its lower bound) may meet the bound
-        x_lo = np.where(self.free, m.lo, np.exp(self._y0))
+        x_lo = self._x_lo
         d_lo = t.true_delay(t.delays(x_lo)[0])
         if d_lo <= T:
             energy = float(w @ x_lo)
@@ -369,8 +368,7 @@ class LargeSizer:
             return near[1].copy(), near[2], close, 0.1
         y = self._fast_y.copy() if self._fast_y is not None else self._y0.copy()
         # a hardware intensity of about one at the cheap end: the smallest sizes' energy / T
-        x_lo = np.where(self.free, self.model.lo, np.exp(y))
-        return y, max(float(w @ x_lo), 1e-30) / T, close, 1.0
+        return y, max(float(w @ self._x_lo), 1e-30) / T, close, 1.0
 
     def _meet(self, y: np.ndarray, w: np.ndarray, lam: float, beta: float, T: float,
               count: list[int], lam_first: float, jump: float = 1.0):
@@ -431,4 +429,4 @@ class LargeSizer:
         return feasible[2], feasible[4], feasible[1], y, math.exp(ll)
 
 
-__all__ = ["GAP", "FAILED", "LargeSizer", "LargeSolution", "SmoothTiming"]
+__all__ = ["GAP", "LargeSizer", "LargeSolution", "SmoothTiming"]
