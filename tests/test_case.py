@@ -263,6 +263,16 @@ def test_write_load_round_trip(build, tmp_path):
                       description="round trip") == text
 
 
+def test_write_load_round_trip_keeps_strengths(tmp_path):
+    with_set, plain = tmp_path / "set.toml", tmp_path / "plain.toml"
+    write_case(decoder(2), None, with_set, strengths=[1, 2, 4.5])
+    write_case(decoder(2), None, plain)
+    assert load_case(with_set).strengths == [1.0, 2.0, 4.5]
+    assert load_case(plain).strengths is None
+    with pytest.raises(CaseError, match="strengths"):
+        write_case(decoder(2), strengths=[2, -1])
+
+
 def test_write_without_path_only_returns(tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)
     text = write_case(decoder(2))

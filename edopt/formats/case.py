@@ -655,6 +655,7 @@ def write_case(
     target: str | None = None,
     description: str = "",
     header: str | None = None,
+    strengths: list[float] | None = None,
 ) -> str:
     """Serialise a circuit and its technology as a case file; ``load_case`` reads it back.
 
@@ -666,6 +667,7 @@ def write_case(
     target : default delay target such as ``"1.2x"`` (checked with `parse_target`).
     description : ``[case] description``.
     header : comment lines put at the top of the file.
+    strengths : ``[case] strengths``, the discrete drive strengths (sizes > 0).
 
     Returns
     -------
@@ -678,6 +680,8 @@ def write_case(
             parse_target(target)
         except ValueError as exc:
             raise CaseError(str(exc)) from None
+    if strengths is not None and (len(strengths) == 0 or min(strengths) <= 0):
+        raise CaseError("strengths must be a non-empty list of sizes > 0")
     out: list[str] = []
     if header:
         out += [f"# {line}".rstrip() for line in header.splitlines()] + [""]
@@ -694,6 +698,8 @@ def write_case(
     ]
     if target is not None:
         out.append(f"target = {_s(target)}")
+    if strengths is not None:
+        out.append(f"strengths = [{', '.join(_n(float(v)) for v in strengths)}]    # x")
     if not builtin:
         out += ["", technology_toml(tech).rstrip("\n")]
     lib = builtin_library()
