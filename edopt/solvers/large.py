@@ -9,9 +9,11 @@ iteration is a few vectorised passes over the timing graph, level by level (no l
   conserve at every node, exactly the multipliers of a Lagrangian relaxation of the timing
   constraints.
 * **Steps.** For a multiplier ``lam`` of the delay bound, ``w @ x + lam * D_smooth`` is minimised
-  over the log sizes within their bounds by L-BFGS-B (scipy), one forward and one backward pass
-  per evaluation. ``lam`` is adjusted (bracketed regula falsi in log ``lam``) until the *true*
-  re-timed delay meets the bound; the sharpness grows until the gap closes.
+  over the log sizes within their bounds by a projected L-BFGS (``quasi_newton.py``), one
+  forward and one backward pass per evaluation. Its recursion starts from each gate's own
+  curvature at fixed flows (``_curvature``), not from one common scale.
+  ``lam`` is adjusted (bracketed regula falsi in log ``lam``) until the *true* re-timed delay
+  meets the bound; the sharpness grows until the gap closes.
 * **Certificate.** With the node flows ``mu = lam * adjoint`` the Lagrangian's minimum over the
   sizes is a lower bound on the optimum (weak duality). The inner problem is convex in log sizes,
   so its value at the computed sizes plus the least value of its linearisation over the size box
@@ -56,6 +58,7 @@ FAST_FTOL = 1e-8        # ... and the minimum-delay one (no multiplier search ri
 MEMORY = 10             # L-BFGS-B correction pairs
 BOUND_SWEEPS = 30       # closed-form sweeps that tighten the certified bound
 TIE = 1e-5              # fastest: weight of the normalised objective beside the delay
+CURVE_FLOOR = 1.0       # the diagonal start is floored at this multiple of its mean
 BUDGET = 8000           # iterations per solve; beyond them the best answer is returned as is
 LAM_RANGE = 1e12        # multipliers beyond this factor of the first guess: bound unreachable
 
@@ -192,12 +195,14 @@ class LargeSizer:
         self._fast_delay: float | None = None
         self.warm = True
         self.method = "own"     # inner steps: "own" (projected L-BFGS) or "scipy" (L-BFGS-B)
+        self.diagonal = True    # own steps start from the per-gate curvature (``_curvature``)
 
     # ------------------------------------------------------------- pieces
     def _minimise(self, y: np.ndarray, w: np.ndarray, lam: float, beta: float,
                   count: list[int], ftol: float = STEP_FTOL) -> np.ndarray:
         """Minimise ``w @ x + lam * D_smooth`` over the free log sizes from ``y``."""
         t, free = self.timing, self.free
+        scaled = self.diagonal and self.method == "own"
         y = y.copy()
         scale = 1.0 / max(float(w @ np.exp(y)) + lam * t.true_delay(t.delays(np.exp(y))[0]),
                           1e-300)
@@ -209,7 +214,11 @@ class LargeSizer:
             d, load = t.delays(x)
             delay, flow, _ = t.smooth(d, beta)
             mu = lam * flow[:self.model.n]
-            grad = w * x + x * (t.PT @ (mu / x)) - mu * load / x
+            up = x * (t.PT @ (mu / x))
+            grad = w * x + up - mu * load / x
+            if scaled:
+                return (scale * (float(w @ x) + lam * delay), scale * grad[free],
+                        scale * self._curvature(w * x + up + mu * load / x, free))
             return scale * (float(w @ x) + lam * delay), scale * grad[free]
 
         lo, hi = self.log_lo[free], self.log_hi[free]
@@ -223,6 +232,18 @@ class LargeSizer:
         count[0] += int(res.nit)
         y[free] = res.x
         return y
+
+    @staticmethod
+    def _curvature(h: np.ndarray, free: np.ndarray) -> np.ndarray:
+        """Diagonal start of the quasi-Newton recursion, per free gate: the curvature of
+        ``w @ x + mu @ d(x)`` in the log sizes at fixed flows ``mu``,
+        ``h = w x + x sum_i mu_i P_ij / x_i + mu_j load_j / x_j`` (the Hessian's diagonal; the
+        smoothing's own curvature is left out), floored at its mean over the free gates: gates
+        far off the critical paths have almost no curvature of their own, and unfloored they
+        would take steps that the smoothing turns back (measured: slower, and the minimum-delay
+        solve stalls)."""
+        hf = h[free]
+        return np.maximum(hf, CURVE_FLOOR * float(hf.mean()) + 1e-300)
 
     def _bound(self, mu: np.ndarray, w: np.ndarray, x: np.ndarray) -> float:
         """Certified lower bound of ``min_x w @ x + mu @ d(x)`` over the size box."""

@@ -6,7 +6,9 @@ Cauchy-point search costs several times a model evaluation at that size.
 
 Method: variables at a bound whose gradient pushes outward are held (the active set); the
 two-loop recursion gives a quasi-Newton direction in the others; a backtracking (Armijo) search
-along the projected path keeps every iterate inside the box.
+along the projected path keeps every iterate inside the box. When the function also returns a
+positive curvature estimate per variable, the recursion starts from that diagonal (scaled by
+the latest correction pair) instead of a multiple of the identity.
 """
 
 from __future__ import annotations
@@ -31,16 +33,19 @@ class Result:
     stalled: bool
 
 
-def minimise_box(fun: Callable[[np.ndarray], tuple[float, np.ndarray]], x0: np.ndarray,
+def minimise_box(fun: Callable[[np.ndarray], tuple], x0: np.ndarray,
                  lo: np.ndarray, hi: np.ndarray, maxiter: int = 1000, ftol: float = 1e-10,
                  memory: int = 10) -> Result:
-    """Minimise ``fun`` (returns value and gradient) over ``lo <= x <= hi`` from ``x0``.
+    """Minimise ``fun`` over ``lo <= x <= hi`` from ``x0``.
+
+    ``fun`` returns the value and the gradient, optionally followed by a positive diagonal
+    curvature estimate (the start of the two-loop recursion).
 
     Stops when an iteration decreases the value by less than ``ftol`` relative, when the
     projected gradient vanishes, or after ``maxiter`` iterations.
     """
     x = np.clip(x0, lo, hi)
-    f, g = fun(x)
+    f, g, h = _evaluate(fun, x)
     nfev = 1
     pairs: deque[tuple[np.ndarray, np.ndarray, float]] = deque(maxlen=memory)
     stalled = False
@@ -51,7 +56,7 @@ def minimise_box(fun: Callable[[np.ndarray], tuple[float, np.ndarray]], x0: np.n
         gf = np.where(held, 0.0, g)
         if not np.any(gf):
             break
-        p = -_two_loop(gf, pairs)
+        p = -_two_loop(gf, pairs, h)
         p[held] = 0.0
         slope = float(g @ p)
         if slope >= 0:                     # not a descent direction: restart from the gradient
@@ -61,7 +66,7 @@ def minimise_box(fun: Callable[[np.ndarray], tuple[float, np.ndarray]], x0: np.n
         step = 1.0 if pairs else min(1.0, 1.0 / max(float(np.max(np.abs(p))), 1e-300))
         for _ in range(BACKTRACKS):
             xn = np.clip(x + step * p, lo, hi)
-            fn, gn = fun(xn)
+            fn, gn, hn = _evaluate(fun, xn)
             nfev += 1
             if fn <= f + ARMIJO * float(g @ (xn - x)):
                 break
@@ -74,21 +79,32 @@ def minimise_box(fun: Callable[[np.ndarray], tuple[float, np.ndarray]], x0: np.n
         if sy > CURVATURE * float(np.linalg.norm(s) * np.linalg.norm(yv)):
             pairs.append((s, yv, 1.0 / sy))
         done = (f - fn) <= ftol * max(abs(f), abs(fn), 1.0)
-        x, f, g = xn, fn, gn
+        x, f, g, h = xn, fn, gn, hn
         if done:
             break
     return Result(x, f, nit, nfev, stalled)
 
 
-def _two_loop(g: np.ndarray, pairs: deque) -> np.ndarray:
-    """The L-BFGS product H g (scaled identity start)."""
+def _evaluate(fun: Callable[[np.ndarray], tuple], x: np.ndarray
+              ) -> tuple[float, np.ndarray, np.ndarray | None]:
+    out = fun(x)
+    return out[0], out[1], (out[2] if len(out) > 2 else None)
+
+
+def _two_loop(g: np.ndarray, pairs: deque, h: np.ndarray | None = None) -> np.ndarray:
+    """The L-BFGS product H g, from a scaled identity or the scaled inverse of diagonal ``h``."""
     q = g.copy()
     alphas = []
     for s, y, rho in reversed(pairs):
         a = rho * float(s @ q)
         alphas.append(a)
         q -= a * y
-    if pairs:
+    if h is not None:
+        q /= h
+        if pairs:
+            s, y, rho = pairs[-1]
+            q *= 1.0 / (rho * float(y @ (y / h)))
+    elif pairs:
         s, y, rho = pairs[-1]
         q *= 1.0 / (rho * float(y @ y))
     for (s, y, rho), a in zip(pairs, reversed(alphas)):
