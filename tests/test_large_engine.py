@@ -178,6 +178,23 @@ def test_warm_start_from_the_neighbouring_bound() -> None:
     assert w2.energy_fj == pytest.approx(c2.energy_fj, rel=2e-3)
 
 
+@pytest.mark.parametrize("method", ["own", "scipy"])
+def test_step_variants_agree(method: str) -> None:
+    """The plain-scaled own steps and scipy's L-BFGS-B steps (reference library) give the
+    default steps' answer within the certified gaps, each meeting the target when re-timed."""
+    c = random_layered(300, seed=4)
+    default, other = Sizer(c, engine="large"), Sizer(c, engine="large")
+    other.engine.method, other.engine.diagonal = method, False
+    t = 1.3 * default.min_delay_ps
+    a, b = default.cheapest(t), other.cheapest(t)
+    for res, sizer in ((a, default), (b, other)):
+        assert res.status == "optimal"
+        assert evaluate(sizer.model, res.evaluation.x, target_ps=t).circuit_delay_ps \
+            <= t * (1 + 1e-9)
+    assert b.energy_fj >= a.lower_bound_fj * (1 - 1e-9)
+    assert a.energy_fj >= b.lower_bound_fj * (1 - 1e-9)
+
+
 def test_frontier_with_the_large_engine() -> None:
     """Every point of a sweep is answered with an honest status and gap. Within 2 % of the
     minimum delay the 0.1 % stopping rule may not be met in the iteration budget: such a point
