@@ -20,7 +20,9 @@ iteration is a few vectorised passes over the timing graph, level by level (no l
   bounds that minimum from below, whatever the accuracy of the steps. The relative gap between
   the (feasible) sizing and that bound is the stopping rule.
 * **Warm starts.** Each answer keeps its log sizes, multiplier and sharpness; the next bound of a
-  sweep starts from the nearest one solved.
+  sweep starts from the nearest one solved, its multiplier predicted by a power law in the excess
+  over the minimum delay (``_predict``); before the multiplier is bracketed, a secant through the
+  last two steps sets how far the next one goes.
 * **Budget.** A solve stops after about ``BUDGET`` iterations with its best feasible answer and
   the gap it reached (status inaccurate): within about 1 % of the minimum delay the energy is so
   steep in the delay that the 0.1 % rule can take far longer.
@@ -60,6 +62,7 @@ BOUND_SWEEPS = 30       # closed-form sweeps that tighten the certified bound
 TIE = 1e-5              # fastest: weight of the normalised objective beside the delay
 CURVE_FLOOR = 1.0       # the diagonal start is floored at this multiple of its mean
 BUDGET = 8000           # iterations per solve; beyond them the best answer is returned as is
+PREDICT_RANGE = 30.0    # a predicted multiplier stays within this factor of its neighbour's
 LAM_RANGE = 1e12        # multipliers beyond this factor of the first guess: bound unreachable
 
 
@@ -385,11 +388,27 @@ class LargeSizer:
         if self.warm and self._states:
             # sizes and multiplier from the nearest bound solved; the sharpness starts afresh
             # (a sharper smoothing than the target needs only slows the steps down)
-            near = min(self._states, key=lambda s: abs(math.log(s[0] / T)))
-            return near[1].copy(), near[2], close, 0.1
+            near = sorted(self._states, key=lambda s: abs(math.log(s[0] / T)))
+            return near[0][1].copy(), self._predict(T, near[:2]), close, 0.1
         y = self._fast_y.copy() if self._fast_y is not None else self._y0.copy()
         # a hardware intensity of about one at the cheap end: the smallest sizes' energy / T
         return y, max(float(w @ self._x_lo), 1e-30) / T, close, 1.0
+
+    def _predict(self, T: float, near: list[tuple[float, np.ndarray, float, float]]) -> float:
+        """Multiplier for bound ``T`` from the nearest solved bounds: a power law in the excess
+        over the minimum delay (the price rises steeply towards it), fitted through the two
+        nearest, else of exponent -1; within a factor PREDICT_RANGE of the nearest."""
+        t_near, lam_near = near[0][0], near[0][2]
+        d0 = self._fast_delay
+        if d0 is None or not (T > d0 and t_near > d0):
+            return lam_near
+        slope = -1.0
+        if len(near) > 1 and near[1][0] > d0 and abs(near[1][0] - t_near) > 1e-9 * T:
+            slope = (math.log(near[1][2] / lam_near)
+                     / math.log((near[1][0] - d0) / (t_near - d0)))
+            slope = min(0.0, max(-3.0, slope))
+        factor = ((T - d0) / (t_near - d0)) ** slope
+        return lam_near * min(PREDICT_RANGE, max(1.0 / PREDICT_RANGE, factor))
 
     def _meet(self, y: np.ndarray, w: np.ndarray, lam: float, beta: float, T: float,
               count: list[int], lam_first: float, jump: float = 1.0):
@@ -406,6 +425,7 @@ class LargeSizer:
         side = 0
         ll = math.log(lam)
         last = math.inf
+        prev: tuple[float, float] | None = None    # (log lam, residual) of the step before
         for _ in range(SECANT_MAX):
             if count[0] > BUDGET and feasible is not None:
                 break
@@ -434,13 +454,18 @@ class LargeSizer:
                 if side == 1 and hi is not None:
                     hi = (hi[0], hi[1] / 2)
                 side = 1
-            if lo is None:
-                ll -= jump
-                jump *= 2
-            elif hi is None:
-                ll += jump
-                jump *= 2
-                if ll - math.log(lam_first) > math.log(LAM_RANGE):
+            if lo is None or hi is None:
+                # not bracketed yet: a secant through the last two steps predicts how far the
+                # root is; overshoot it a little (to bracket), within 1 to 8 times the jump
+                step = jump
+                if prev is not None and ll != prev[0]:
+                    slope = (r - prev[1]) / (ll - prev[0])
+                    if slope < 0:
+                        step = min(8.0 * jump, max(jump, 1.25 * abs(r / slope)))
+                prev = (ll, r)
+                ll += step if lo is not None else -step
+                jump = 2.0 * step
+                if hi is None and ll - math.log(lam_first) > math.log(LAM_RANGE):
                     return None
             else:
                 ll = hi[0] - hi[1] * (lo[0] - hi[0]) / (lo[1] - hi[1])
