@@ -219,3 +219,18 @@ def test_parallel_sweep_equals_serial_sweep():
     np.testing.assert_allclose(parallel.energy_fj, serial.energy_fj, rtol=1e-6)
     np.testing.assert_allclose(parallel.delay_ps, serial.delay_ps, rtol=1e-6)
     assert (parallel.status == "optimal").all()
+
+
+def test_default_workers_by_network_size(monkeypatch):
+    """Two workers by default only for large networks on a machine with two CPUs (measured
+    faster there, benchmarks/frontier_1000.py); small networks and single CPUs stay serial."""
+    from edopt import parallel
+
+    small = Sizer(random_layered(30, 4), NO_LEAK).model
+    large = Sizer(random_layered(parallel.PARALLEL_GATES + 50, 4), NO_LEAK).model
+    monkeypatch.setattr(parallel, "cores", lambda: 2)
+    assert parallel.default_workers(small, 24) == 1
+    assert parallel.default_workers(large, 24) == 2
+    assert parallel.default_workers(large, parallel.PARALLEL_JOBS - 1) == 1
+    monkeypatch.setattr(parallel, "cores", lambda: 1)
+    assert parallel.default_workers(large, 24) == 1
