@@ -136,8 +136,9 @@ def frontier(
     span : largest bound as a multiple of the minimum delay.
     progress : called as ``progress(done, total, sizing_or_None)`` after each point (points
         may finish out of order when several workers run).
-    workers : processes for the sweep (each compiles the program once); ``None`` = serial,
-        which measured as fast as two workers on a 2-core machine.
+    workers : processes for the sweep (each compiles the program once); ``None`` = two for
+        networks of 600 free gates or more on a machine with two CPUs (measured faster there),
+        else serial (``parallel.default_workers``). The large engine always sweeps serially.
 
     Returns
     -------
@@ -167,7 +168,11 @@ def frontier(
             jobs.append((k, sizer.model.to_tau(req[0]), req[2]))
     n_workers = default_workers(sizer.model, len(jobs)) if workers is None else workers
     if sizer.engine_name == "large":
-        n_workers = 1   # the large engine warm-starts each bound from its neighbour, in order
+        # the large engine warm-starts each bound from its neighbour, in order: from the relaxed
+        # end down (measured on 10^4 gates, 25 points: 22 % less time than upwards, and more
+        # points within the gap; the steep end starts from neighbours that are solved well)
+        n_workers = 1
+        jobs.reverse()
     if n_workers > 1 and len(jobs) > 1:
         answers = solve_bounds(sizer.model, sizer.options, jobs, n_workers)
     else:

@@ -201,8 +201,12 @@ def test_frontier_with_the_large_engine() -> None:
     is marked inaccurate, its gap is reported, and its bound still holds."""
     c = random_layered(300, seed=8)
     ref = Sizer(c, engine="reference")
-    front = edopt.frontier(Sizer(c, engine="large"), points=6, span=1.8)
+    order: list[float] = []
+    front = edopt.frontier(Sizer(c, engine="large"), points=6, span=1.8,
+                           progress=lambda k, n, s: order.append(s.target_ps))
     table = front.table
+    # after the minimum delay the sweep runs from the relaxed end down (warm starts)
+    assert order[1:] == sorted(order[1:], reverse=True) and len(order) == len(table)
     d_min = front.min_delay_ps
     assert table["status"].isin(["optimal", "inaccurate"]).all()
     for p in front.points[1:]:
