@@ -22,7 +22,8 @@ iteration is a few vectorised passes over the timing graph, level by level (no l
 * **Warm starts.** Each answer keeps its log sizes, multiplier and sharpness; the next bound of a
   sweep starts from the nearest one solved, its multiplier predicted by a power law in the excess
   over the minimum delay (``_predict``); before the multiplier is bracketed, a secant through the
-  last two steps sets how far the next one goes.
+  last two steps sets how far the next one goes. Within a search each step starts from the log
+  sizes interpolated in ``log lam`` between the two nearest steps solved (``_between``).
 * **Budget.** A solve stops after about ``BUDGET`` iterations with its best feasible answer and
   the gap it reached (status inaccurate): within about 1 % of the minimum delay the energy is so
   steep in the delay that the 0.1 % rule can take far longer.
@@ -197,6 +198,7 @@ class LargeSizer:
         self._fast_y: np.ndarray | None = None
         self._fast_delay: float | None = None
         self.warm = True
+        self.predict_sizes = True   # a step's start interpolated from the steps around it
         self.method = "own"     # inner steps: "own" (projected L-BFGS) or "scipy" (L-BFGS-B)
         self.diagonal = True    # own steps start from the per-gate curvature (``_curvature``)
 
@@ -410,6 +412,17 @@ class LargeSizer:
         factor = ((T - d0) / (t_near - d0)) ** slope
         return lam_near * min(PREDICT_RANGE, max(1.0 / PREDICT_RANGE, factor))
 
+    def _between(self, solved: list[tuple[float, np.ndarray]], ll: float) -> np.ndarray:
+        """Start of the step at log multiplier ``ll``: the log sizes interpolated (or, by at most
+        the distance between them, extrapolated) linearly in ``log lam`` from the two solved
+        steps nearest to it, within the size box."""
+        (la, ya), (lb, yb) = sorted(solved, key=lambda s: abs(s[0] - ll))[:2]
+        if abs(lb - la) < 1e-12:
+            return ya.copy()
+        f = min(2.0, max(-1.0, (ll - la) / (lb - la)))
+        y = ya + f * (yb - ya)
+        return np.where(self.free, np.clip(y, self.log_lo, self.log_hi), ya)
+
     def _meet(self, y: np.ndarray, w: np.ndarray, lam: float, beta: float, T: float,
               count: list[int], lam_first: float, jump: float = 1.0):
         """Adjust the multiplier until the true delay is just below ``T`` (its unused part worth
@@ -426,10 +439,14 @@ class LargeSizer:
         ll = math.log(lam)
         last = math.inf
         prev: tuple[float, float] | None = None    # (log lam, residual) of the step before
+        solved: list[tuple[float, np.ndarray]] = []   # (log lam, log sizes) of each step
         for _ in range(SECANT_MAX):
             if count[0] > BUDGET and feasible is not None:
                 break
+            if self.predict_sizes and len(solved) >= 2:
+                y = self._between(solved, ll)
             y = self._minimise(y, w, math.exp(ll), beta, count)
+            solved.append((ll, y))
             x = np.exp(y)
             delay = t.true_delay(t.delays(x)[0])
             r = math.log(delay / T)
