@@ -30,6 +30,10 @@ import time
 FACTOR = 1.3
 
 
+def _progress(text: str) -> None:
+    print(f"# {text}", file=sys.stderr, flush=True)
+
+
 def one(gates: int) -> dict:
     from edopt.generators import random_layered
     from edopt.sizing import Sizer
@@ -41,9 +45,11 @@ def one(gates: int) -> dict:
     sizer = Sizer(circuit, engine="large")
     compile_s = time.perf_counter() - t0
     del circuit
+    _progress(f"{gates} gates: built in {build:.1f} s, compiled in {compile_s:.1f} s")
     t0 = time.perf_counter()
     fast = sizer.fastest()
     fast_s = time.perf_counter() - t0
+    _progress(f"{gates} gates: minimum delay in {fast_s:.1f} s ({fast.iterations} iterations)")
     t0 = time.perf_counter()
     res = sizer.cheapest(FACTOR * fast.delay_ps)
     target_s = time.perf_counter() - t0
@@ -150,8 +156,9 @@ def main(argv: list[str]) -> None:
     sizes = [int(a) for a in argv] or [10_000, 100_000]
     rows = []
     for gates in sizes:
+        # the child's progress lines (stderr) pass through; its result row is its last stdout line
         out = subprocess.run([sys.executable, __file__, "--one", str(gates)], check=True,
-                             capture_output=True, text=True).stdout
+                             stdout=subprocess.PIPE, text=True).stdout
         rows.append(json.loads(out.strip().splitlines()[-1]))
         print(f"# {gates} gates done", file=sys.stderr)
     _print(rows)
