@@ -49,10 +49,10 @@ def default_workers(model: Model, jobs: int) -> int:
 
     Two when the network has at least ``PARALLEL_GATES`` free gates, there are at least
     ``PARALLEL_JOBS`` solves and two CPUs; else one (serial). Measured on 2 cores
-    (``benchmarks/frontier_1000.py``): at 1,000 gates two workers took 0.9-1.9 s per point
-    against 1.8-2.6 s serial; at 300 gates 0.27 s against 0.19 s (each worker compiles its own
-    program, which small networks do not pay back). More than two measured no better on two
-    cores and are used only when asked for (``workers=``)."""
+    (``benchmarks/frontier_1000.py``, 25-point frontiers): at 1,000 gates two workers took
+    0.40-0.63 s per later point against 0.69-1.14 s serial; at 300 gates 0.27 s against 0.19 s
+    (each worker compiles its own program, which small networks do not pay back). More workers
+    than CPUs are used only when asked for (``workers=``)."""
     free = int(np.sum(~model.fixed))
     if free >= PARALLEL_GATES and jobs >= PARALLEL_JOBS and cores() >= 2:
         return 2
