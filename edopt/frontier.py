@@ -166,13 +166,14 @@ def frontier(
         else:
             pending[k] = req
             jobs.append((k, sizer.model.to_tau(req[0]), req[2]))
-    n_workers = default_workers(sizer.model, len(jobs)) if workers is None else workers
     if sizer.engine_name == "large":
         # the large engine warm-starts each bound from its neighbour, in order: from the relaxed
         # end down (measured on 10^4 gates, 25 points: 22 % less time than upwards, and more
         # points within the gap; the steep end starts from neighbours that are solved well)
         n_workers = 1
         jobs.reverse()
+    else:
+        n_workers = default_workers(sizer.model, len(jobs)) if workers is None else workers
     if n_workers > 1 and len(jobs) > 1:
         answers = solve_bounds(sizer.model, sizer.options, jobs, n_workers)
     else:
