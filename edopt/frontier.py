@@ -19,6 +19,7 @@ from .circuit import Circuit
 from .errors import EdoptError, InfeasibleTarget
 from .parallel import default_workers, solve_bounds
 from .sizing import CAUTION, Sizer, Sizing, parse_target
+from .solvers.large import LargeSizer
 from .technology import Technology
 
 SUMMARY_STEPS = (0.05, 0.10, 0.20)   # relaxations reported in the plain summary
@@ -138,7 +139,7 @@ def frontier(
         may finish out of order when several workers run).
     workers : processes for the sweep (each compiles the program once); ``None`` = two for
         networks of 600 free gates or more on a machine with two CPUs (measured faster there),
-        else serial (``parallel.default_workers``). The large engine always sweeps serially.
+        else serial (``parallel.default_workers``), for either engine.
 
     Returns
     -------
@@ -166,16 +167,16 @@ def frontier(
         else:
             pending[k] = req
             jobs.append((k, sizer.model.to_tau(req[0]), req[2]))
-    if sizer.engine_name == "large":
+    large = sizer.engine if isinstance(sizer.engine, LargeSizer) else None
+    if large is not None:
         # the large engine warm-starts each bound from its neighbour, in order: from the relaxed
         # end down (measured on 10^4 gates, 25 points: 22 % less time than upwards, and more
-        # points within the gap; the steep end starts from neighbours that are solved well)
-        n_workers = 1
+        # points within the gap; the steep end starts from neighbours that are solved well).
+        # Two workers take alternate bounds, each warm-starting from its own previous one.
         jobs.reverse()
-    else:
-        n_workers = default_workers(sizer.model, len(jobs)) if workers is None else workers
+    n_workers = default_workers(sizer.model, len(jobs)) if workers is None else workers
     if n_workers > 1 and len(jobs) > 1:
-        answers = solve_bounds(sizer.model, sizer.options, jobs, n_workers)
+        answers = solve_bounds(sizer.model, sizer.options, jobs, n_workers, large)
     else:
         answers = ((k, sizer.engine.cheapest(b, w)) for k, b, w in jobs)
     for k, sol in answers:

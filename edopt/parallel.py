@@ -5,6 +5,9 @@ start-up) and then solves the bounds it is given; answers come back as plain Sol
 re-timed in the calling process, so the independent evaluation stays where the results are
 reported. Used by frontier sweeps of large networks by default (``default_workers``)
 and whenever ``workers`` > 1 is asked for.
+
+A large-engine worker (``solvers/large.py``) starts from the caller's minimum-delay solve
+(``LargeSizer.fast_state``) and warm-starts each of its bounds from the ones it solved before.
 """
 
 from __future__ import annotations
@@ -18,17 +21,25 @@ import numpy as np
 
 from .model import Model
 from .solvers.conic import ConicSizer, Options, Solution
+from .solvers.large import LargeSizer
 
 PARALLEL_GATES = 600     # default: two workers from this many free gates ...
 PARALLEL_JOBS = 4        # ... and this many solves
+_THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 
-_ENGINE: ConicSizer | None = None
+_ENGINE: ConicSizer | LargeSizer | None = None
 
 
-def _start(model: Model, options: Options) -> None:
+def _start(model: Model, options: Options, large: dict | None = None) -> None:
+    """Compile the worker's engine: the reference one, or (``large``: the LargeSizer's gap and
+    its ``fast_state``) the large one."""
     global _ENGINE
-    os.environ.setdefault("OMP_NUM_THREADS", "1")
-    _ENGINE = ConicSizer(model, options)
+    if large is None:
+        _ENGINE = ConicSizer(model, options)
+    else:
+        engine = LargeSizer(model, options, gap=large["gap"])
+        engine.set_fast_state(large["fast"])
+        _ENGINE = engine
 
 
 def _solve(k: int, bound_tau: float, weights: np.ndarray) -> tuple[int, Solution]:
@@ -60,17 +71,34 @@ def default_workers(model: Model, jobs: int) -> int:
 
 
 def solve_bounds(model: Model, options: Options, jobs: Sequence[tuple[int, float, np.ndarray]],
-                 workers: int) -> Iterator[tuple[int, Solution | BaseException]]:
+                 workers: int, large: LargeSizer | None = None
+                 ) -> Iterator[tuple[int, Solution | BaseException]]:
     """Yield ``(index, Solution or the exception)`` as each job ``(index, bound, weights)`` ends.
 
-    Jobs are handed out in order so each worker moves along the frontier."""
-    # a fresh server process forks the workers: no solver threads of this process are copied
-    ctx = multiprocessing.get_context("forkserver")
-    with ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_start,
-                             initargs=(model, options)) as pool:
-        futures = {pool.submit(_solve, k, b, w): k for k, b, w in jobs}
-        for fut in as_completed(futures):
-            try:
-                yield fut.result()
-            except Exception as exc:  # a failed point keeps the others
-                yield futures[fut], exc
+    Jobs are handed out in order so each worker moves along the frontier. ``large``: solve with
+    copies of this large engine (its gap and minimum-delay solve) instead of the reference."""
+    state = None if large is None else {"gap": large.gap, "fast": large.fast_state()}
+    # a fresh server process forks the workers: no solver threads of this process are copied.
+    # It inherits this process's environment when it starts, before any worker imports numpy:
+    # one BLAS thread per worker (measured on 2 CPUs: two large-engine solves at once, each
+    # with the default two BLAS threads, ran 3-4 times slower than one alone; with one thread
+    # each, as fast as one alone)
+    saved = {k: os.environ.get(k) for k in _THREAD_VARS}
+    for k in _THREAD_VARS:
+        os.environ.setdefault(k, "1")
+    try:
+        ctx = multiprocessing.get_context("forkserver")
+        with ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_start,
+                                 initargs=(model, options, state)) as pool:
+            futures = {pool.submit(_solve, k, b, w): k for k, b, w in jobs}
+            for fut in as_completed(futures):
+                try:
+                    yield fut.result()
+                except Exception as exc:  # a failed point keeps the others
+                    yield futures[fut], exc
+    finally:
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v

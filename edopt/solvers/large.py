@@ -63,8 +63,23 @@ BOUND_SWEEPS = 30       # closed-form sweeps that tighten the certified bound
 TIE = 1e-5              # fastest: weight of the normalised objective beside the delay
 CURVE_FLOOR = 1.0       # the diagonal start is floored at this multiple of its mean
 BUDGET = 8000           # iterations per solve; beyond them the best answer is returned as is
+AIM_FLOOR = 0.03        # least aimed multiplier step (log) before the root is bracketed
 PREDICT_RANGE = 30.0    # a predicted multiplier stays within this factor of its neighbour's
 LAM_RANGE = 1e12        # multipliers beyond this factor of the first guess: bound unreachable
+
+
+@dataclass
+class _Solved:
+    """A bound solved, kept for warm starts: its log sizes and multiplier at the final sharpness,
+    the slope of ``log(delay / T)`` in ``log lam`` and the multiplier's shift with sharpness
+    (``log lam(sharp) ~ log lam* + bias / sharp``; 0 until two stages were solved)."""
+
+    T: float
+    y: np.ndarray
+    lam: float
+    sharp: float
+    slope: float | None
+    bias: float
 
 
 @dataclass
@@ -194,13 +209,24 @@ class LargeSizer:
         self.depth = max(1, int(model.level.max()) if model.n else 1)
         self._y0 = np.log(np.clip(np.ones(model.n), model.lo, model.hi))
         self._x_lo = np.where(self.free, model.lo, np.exp(self._y0))   # the smallest sizing
-        self._states: list[tuple[float, np.ndarray, float, float]] = []
+        self._states: list[_Solved] = []
         self._fast_y: np.ndarray | None = None
         self._fast_delay: float | None = None
         self.warm = True
         self.predict_sizes = True   # a step's start interpolated from the steps around it
         self.method = "own"     # inner steps: "own" (projected L-BFGS) or "scipy" (L-BFGS-B)
         self.diagonal = True    # own steps start from the per-gate curvature (``_curvature``)
+
+    def fast_state(self) -> tuple[np.ndarray, float] | None:
+        """Log sizes and true delay of the minimum-delay solve (None before ``fastest``): what
+        another copy of this engine needs to start its sweep from (``set_fast_state``)."""
+        if self._fast_y is None or self._fast_delay is None:
+            return None
+        return self._fast_y.copy(), self._fast_delay
+
+    def set_fast_state(self, state: tuple[np.ndarray, float] | None) -> None:
+        if state is not None:
+            self._fast_y, self._fast_delay = state[0].copy(), float(state[1])
 
     # ------------------------------------------------------------- pieces
     def _minimise(self, y: np.ndarray, w: np.ndarray, lam: float, beta: float,
@@ -327,9 +353,10 @@ class LargeSizer:
                 x_lo, d_lo, energy, 0.0, OPTIMAL, "large", time.perf_counter() - t0,
                 ["large: the bound is slack at the smallest sizes (exact optimum)"],
                 lower=energy, gap=0.0, iterations=0, evaluations=1)
-        y, lam, sharp, jump = self._start(T, w)
+        y, lam, sharp, jump, slope, bias = self._start(T, w)
         lam_first = lam
         lower, gap, best = -math.inf, math.inf, None
+        stages: list[tuple[float, float]] = []    # (sharpness, log lam) of each stage solved
         notes: list[str] = []
         if self._fast_y is not None and self._fast_delay is not None and self._fast_delay <= T:
             # the minimum-delay sizing meets the bound: the answer is never worse than it
@@ -339,7 +366,7 @@ class LargeSizer:
             beta = self._beta(T, sharp)
             # a cold start brackets by factors of e; a warm one (a sharper stage, a neighbouring
             # bound) starts close to the answer and brackets by 10 % first
-            found = self._meet(y, w, lam, beta, T, count, lam_first, jump)
+            found = self._meet(y, w, lam, beta, T, count, lam_first, jump, slope)
             jump = 0.1
             if found is None:
                 # too close to the minimum delay for this sharpness: the smoothing's own excess
@@ -348,7 +375,11 @@ class LargeSizer:
                 sharp *= SHARP_GROWTH
                 continue
             # the certificate at the feasible answer, with the multiplier it was solved for
-            x, delay, lam, y, lam_next = found
+            x, delay, lam, y, lam_next, slope = found
+            stages.append((sharp, math.log(lam)))
+            if len(stages) >= 2:
+                (s1, l1), (s2, l2) = stages[-2:]
+                bias = (l1 - l2) / (1.0 / s1 - 1.0 / s2)
             d, _ = t.delays(x)
             _, flow, share = t.smooth(d, beta)
             mu = lam * flow[:m.n]
@@ -361,7 +392,8 @@ class LargeSizer:
             notes.append(f"sharpness {sharp:g}: gap {gap:.2e}")
             if gap <= self.gap or count[0] > BUDGET:
                 break
-            lam = lam_next
+            # the multiplier falls as the smoothing sharpens (about bias / sharpness in log)
+            lam = lam_next * math.exp(bias * (1.0 / (SHARP_GROWTH * sharp) - 1.0 / sharp))
             sharp *= SHARP_GROWTH
         if best is None:
             return LargeSolution(
@@ -370,8 +402,8 @@ class LargeSizer:
                 [f"large: bound {T:.6g} tau not met at any sharpness; " + ", ".join(notes)],
                 iterations=count[0], evaluations=count[1])
         x, energy, delay, lam = best
-        if math.isfinite(lam):
-            self._states.append((T, y.copy(), lam, sharp))
+        if math.isfinite(lam) and stages:
+            self._states.append(_Solved(T, y.copy(), lam, stages[-1][0], slope, bias))
         status = OPTIMAL if gap <= self.gap else INACCURATE
         return LargeSolution(
             x, delay, energy, lam, status, "large", time.perf_counter() - t0,
@@ -379,8 +411,10 @@ class LargeSizer:
              + ", ".join(notes)],
             lower=lower, gap=gap, iterations=count[0], evaluations=count[1])
 
-    def _start(self, T: float, w: np.ndarray) -> tuple[np.ndarray, float, float, float]:
-        """Warm start from the nearest bound solved, else from the fastest sizing."""
+    def _start(self, T: float, w: np.ndarray
+               ) -> tuple[np.ndarray, float, float, float, float | None, float]:
+        """Warm start from the nearest bound solved, else from the fastest sizing: log sizes,
+        multiplier, first sharpness, first multiplier jump, slope and bias (``_Solved``)."""
         # the smoothing adds about T * log(2) / sharpness to the delay: close to the minimum
         # delay the first stage must be sharp enough for the bound to be reachable at all
         close = SHARP_START
@@ -390,24 +424,28 @@ class LargeSizer:
         if self.warm and self._states:
             # sizes and multiplier from the nearest bound solved; the sharpness starts afresh
             # (a sharper smoothing than the target needs only slows the steps down)
-            near = sorted(self._states, key=lambda s: abs(math.log(s[0] / T)))
-            return near[0][1].copy(), self._predict(T, near[:2]), close, 0.1
+            near = sorted(self._states, key=lambda s: abs(math.log(s.T / T)))
+            first = near[0]
+            lam = self._predict(T, near[:2]) * math.exp(first.bias / close)
+            return first.y.copy(), lam, close, 0.1, first.slope, first.bias
         y = self._fast_y.copy() if self._fast_y is not None else self._y0.copy()
         # a hardware intensity of about one at the cheap end: the smallest sizes' energy / T
-        return y, max(float(w @ self._x_lo), 1e-30) / T, close, 1.0
+        return y, max(float(w @ self._x_lo), 1e-30) / T, close, 1.0, None, 0.0
 
-    def _predict(self, T: float, near: list[tuple[float, np.ndarray, float, float]]) -> float:
-        """Multiplier for bound ``T`` from the nearest solved bounds: a power law in the excess
-        over the minimum delay (the price rises steeply towards it), fitted through the two
-        nearest, else of exponent -1; within a factor PREDICT_RANGE of the nearest."""
-        t_near, lam_near = near[0][0], near[0][2]
+    def _predict(self, T: float, near: list[_Solved]) -> float:
+        """Multiplier for bound ``T`` from the nearest solved bounds, without the smoothing's
+        shift (``lam* = lam exp(-bias / sharp)``): a power law in the excess over the minimum
+        delay (the price rises steeply towards it), fitted through the two nearest, else of
+        exponent -1; within a factor PREDICT_RANGE of the nearest."""
+        stars = [(s.T, s.lam * math.exp(-s.bias / s.sharp)) for s in near]
+        t_near, lam_near = stars[0]
         d0 = self._fast_delay
         if d0 is None or not (T > d0 and t_near > d0):
             return lam_near
         slope = -1.0
-        if len(near) > 1 and near[1][0] > d0 and abs(near[1][0] - t_near) > 1e-9 * T:
-            slope = (math.log(near[1][2] / lam_near)
-                     / math.log((near[1][0] - d0) / (t_near - d0)))
+        if len(stars) > 1 and stars[1][0] > d0 and abs(stars[1][0] - t_near) > 1e-9 * T:
+            slope = (math.log(stars[1][1] / lam_near)
+                     / math.log((stars[1][0] - d0) / (t_near - d0)))
             slope = min(0.0, max(-3.0, slope))
         factor = ((T - d0) / (t_near - d0)) ** slope
         return lam_near * min(PREDICT_RANGE, max(1.0 / PREDICT_RANGE, factor))
@@ -424,13 +462,16 @@ class LargeSizer:
         return np.where(self.free, np.clip(y, self.log_lo, self.log_hi), ya)
 
     def _meet(self, y: np.ndarray, w: np.ndarray, lam: float, beta: float, T: float,
-              count: list[int], lam_first: float, jump: float = 1.0):
+              count: list[int], lam_first: float, jump: float = 1.0,
+              slope: float | None = None):
         """Adjust the multiplier until the true delay is just below ``T`` (its unused part worth
         at most SLACK_SHARE of the gap).
 
         Regula falsi (Illinois) on ``log(delay / T)`` against ``log lam``, after bracketing by
-        factors of e, e^2, e^4, ... Returns ``(x, delay, lam)`` of the best feasible point and
-        ``(y, lam)`` of the last step (where a sharper stage starts), or None."""
+        factors of e, e^2, e^4, ... or, given the ``slope`` of ``log(delay / T)`` in ``log lam``
+        (a sharper stage, a neighbouring bound), after secant steps aimed just inside the bound.
+        Returns ``(x, delay, lam)`` of the best feasible point, ``(y, lam)`` of the last step
+        (where a sharper stage starts) and the last slope seen, or None."""
         t = self.timing
         lo: tuple | None = None       # (log lam, residual > 0: too slow)
         hi: tuple | None = None       # (log lam, residual <= 0: meets the bound)
@@ -440,6 +481,8 @@ class LargeSizer:
         last = math.inf
         prev: tuple[float, float] | None = None    # (log lam, residual) of the step before
         solved: list[tuple[float, np.ndarray]] = []   # (log lam, log sizes) of each step
+        aimed = slope is not None and slope < 0
+        step_before: tuple[float, float] | None = None
         for _ in range(SECANT_MAX):
             if count[0] > BUDGET and feasible is not None:
                 break
@@ -450,6 +493,14 @@ class LargeSizer:
             x = np.exp(y)
             delay = t.true_delay(t.delays(x)[0])
             r = math.log(delay / T)
+            if step_before is not None and abs(ll - step_before[0]) >= AIM_FLOOR / 3:
+                seen = (r - step_before[1]) / (ll - step_before[0])
+                if seen < 0:
+                    slope = seen
+            step_before = (ll, r)
+            # unused delay (relative) worth SLACK_SHARE of the gap, to first order
+            room = max(SLACK_SHARE * self.gap * float(w @ x) / (math.exp(ll) * T),
+                       DELAY_RTOL * 1e-2)
             if r <= 0 and (feasible is None or r > feasible[3]):
                 feasible = (y.copy(), math.exp(ll), x, r, delay)
             if abs(r - last) < 1e-3 * DELAY_RTOL or (
@@ -459,8 +510,7 @@ class LargeSizer:
             if r <= 0:
                 # close enough when the unused delay is worth a small part of the gap
                 # (first order: multiplier x slack) or within DELAY_RTOL
-                if math.exp(ll) * (T - delay) <= SLACK_SHARE * self.gap * float(w @ x) \
-                        or -r <= DELAY_RTOL * 1e-2:
+                if -r <= room:
                     break
                 hi = (ll, r)
                 if side == -1 and lo is not None:
@@ -471,7 +521,16 @@ class LargeSizer:
                 if side == 1 and hi is not None:
                     hi = (hi[0], hi[1] / 2)
                 side = 1
-            if lo is None or hi is None:
+            if (lo is None or hi is None) and aimed and slope is not None:
+                # the first step of a warm start, slope known: a secant step aimed at half the
+                # room inside, of at least AIM_FLOOR (the inner steps do not resolve smaller
+                # moves from one start; once bracketed, the starts are interpolated and they
+                # do); later steps bracket as from a cold start (measured: aiming every step
+                # fights the inner steps' noise near the minimum delay)
+                move = (-0.5 * room - r) / slope
+                ll += math.copysign(min(8.0 * jump, max(AIM_FLOOR, abs(move))), move)
+                aimed = False
+            elif lo is None or hi is None:
                 # not bracketed yet: a secant through the last two steps predicts how far the
                 # root is; overshoot it a little (to bracket), within 1 to 8 times the jump
                 step = jump
@@ -489,7 +548,7 @@ class LargeSizer:
         if feasible is None:
             return None
         # the feasible answer, and where the next (sharper) stage should start: the last step
-        return feasible[2], feasible[4], feasible[1], y, math.exp(ll)
+        return feasible[2], feasible[4], feasible[1], y, math.exp(ll), slope
 
 
 __all__ = ["GAP", "LargeSizer", "LargeSolution", "SmoothTiming"]
