@@ -19,11 +19,15 @@ iteration is a few vectorised passes over the timing graph, level by level (no l
   so its value at the computed sizes plus the least value of its linearisation over the size box
   bounds that minimum from below, whatever the accuracy of the steps. The relative gap between
   the (feasible) sizing and that bound is the stopping rule.
-* **Warm starts.** Each answer keeps its log sizes, multiplier and sharpness; the next bound of a
-  sweep starts from the nearest one solved, its multiplier predicted by a power law in the excess
-  over the minimum delay (``_predict``); before the multiplier is bracketed, a secant through the
-  last two steps sets how far the next one goes. Within a search each step starts from the log
-  sizes interpolated in ``log lam`` between the two nearest steps solved (``_between``).
+* **Warm starts.** Each answer keeps its log sizes, multiplier and sharpness, the slope of its
+  delay in the multiplier and how its multiplier and sizes moved with the sharpness (about in
+  proportion to 1 / sharpness, ``_Solved``). The next bound of a sweep starts from the nearest
+  one solved, moved back to its first (smoother) stage, its multiplier predicted by a power law
+  in the excess over the minimum delay (``_predict``), and its first multiplier step aimed by the
+  known slope; each sharper stage starts from the sizes and multiplier extrapolated in
+  1 / sharpness. Before the multiplier is bracketed, a secant through the last two steps sets how
+  far the next one goes. Within a search each step starts from the log sizes interpolated in
+  ``log lam`` between the two nearest steps solved (``_between``).
 * **Budget.** A solve stops after about ``BUDGET`` iterations with its best feasible answer and
   the gap it reached (status inaccurate): within about 1 % of the minimum delay the energy is so
   steep in the delay that the 0.1 % rule can take far longer.
