@@ -364,7 +364,7 @@ class LargeSizer:
         lam_first = lam
         lower, gap, best = -math.inf, math.inf, None
         stages: list[tuple[float, float]] = []    # (sharpness, log lam) of each stage solved
-        y_end: list[np.ndarray] = []              # log sizes at the end of each stage solved
+        y_solved: np.ndarray | None = None        # log sizes at the end of the last stage
         notes: list[str] = []
         if self._fast_y is not None and self._fast_delay is not None and self._fast_delay <= T:
             # the minimum-delay sizing meets the bound: the answer is never worse than it
@@ -385,11 +385,11 @@ class LargeSizer:
             # the certificate at the feasible answer, with the multiplier it was solved for
             x, delay, lam, y, lam_next, slope = found
             stages.append((sharp, math.log(lam)))
-            y_end = [*y_end[-1:], y]
-            if len(stages) >= 2:
+            if y_solved is not None:
                 (s1, l1), (s2, l2) = stages[-2:]
                 bias = (l1 - l2) / (1.0 / s1 - 1.0 / s2)
-                y_bias = (y_end[0] - y_end[1]) / (1.0 / s1 - 1.0 / s2)
+                y_bias = (y_solved - y) / (1.0 / s1 - 1.0 / s2)
+            y_solved = y
             d, _ = t.delays(x)
             _, flow, share = t.smooth(d, beta)
             mu = lam * flow[:m.n]
@@ -416,8 +416,8 @@ class LargeSizer:
                 [f"large: bound {T:.6g} tau not met at any sharpness; " + ", ".join(notes)],
                 iterations=count[0], evaluations=count[1])
         x, energy, delay, lam = best
-        if math.isfinite(lam) and stages:
-            self._states.append(_Solved(T, y_end[-1].copy(), lam, stages[-1][0], slope, bias,
+        if math.isfinite(lam) and y_solved is not None:
+            self._states.append(_Solved(T, y_solved.copy(), lam, stages[-1][0], slope, bias,
                                         y_bias))
         status = OPTIMAL if gap <= self.gap else INACCURATE
         return LargeSolution(
