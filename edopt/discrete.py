@@ -49,7 +49,7 @@ import pandas as pd
 from .circuit import Circuit
 from .errors import EdoptError, GateError, InfeasibleTarget, SolverError
 from .model import Model
-from .sizing import CAUTION, OPTIMAL, Sizer, Sizing, parse_target
+from .sizing import CAUTION, OPTIMAL, Sizer, Sizing, is_relative, parse_target
 from .solvers.conic import Solution
 from .technology import Technology
 
@@ -1366,7 +1366,7 @@ class DiscreteSizer:
             unreachable (below the continuous minimum within the range of the sets).
         """
         m = self.model
-        t_ps = parse_target(target, self.min_delay_ps if _is_relative(target) else None)
+        t_ps = parse_target(target, self.min_delay_ps if is_relative(target) else None)
         # large networks search for the fastest discrete sizing only when they need it
         lazy = self.search.large and self._fast is None
         fast_k = None if lazy else self._fastest_k()[0]
@@ -1482,10 +1482,6 @@ class DiscreteSizer:
                              f"{self.continuous_min_delay_ps:.2f} ps; fastest discrete delay "
                              f"found: {self.min_delay_ps:.2f} ps")
         return res
-
-
-def _is_relative(target: str | float) -> bool:
-    return isinstance(target, str) and target.strip().lower().endswith("x")
 
 
 # ------------------------------------------------------------------------------ frontier

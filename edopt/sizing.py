@@ -38,6 +38,11 @@ ENGINES = ("auto", "reference", "large")
 _TARGET = re.compile(r"^\s*([0-9]*\.?[0-9]+(?:[eE][-+]?[0-9]+)?)\s*(ps|ns|x)?\s*$")
 
 
+def is_relative(target: str | float | None) -> bool:
+    """Whether ``target`` is a multiple of the minimum delay (``"1.2x"``)."""
+    return isinstance(target, str) and target.strip().lower().endswith("x")
+
+
 def parse_target(target: str | float | None, min_delay_ps: float | None = None) -> float | None:
     """A delay target in ps from ``250``, ``"250ps"``, ``"0.25ns"`` or ``"1.2x"`` (times the
     minimum delay, which must then be given)."""
@@ -369,7 +374,16 @@ class Sizer:
 
     def request(self, target: str | float) -> Sizing | tuple[float, float, np.ndarray]:
         """Check a target and prepare its solve: ``(t_ps, cycle_ps, weights)``, or the answer
-        itself when the target is the minimum delay. Raises InfeasibleTarget below it."""
+        itself when the target is the minimum delay. Raises InfeasibleTarget below it.
+
+        The large engine takes an absolute target without solving the minimum delay first
+        (on a million gates that solve costs more than the target's own); the minimum delay
+        is then solved only if the target turns out out of reach (``finish``)."""
+        if self.engine_name == "large" and self._fastest is None and not is_relative(target):
+            t_ps = parse_target(target)
+            assert t_ps is not None
+            cycle = self.cycle_ps or t_ps
+            return t_ps, cycle, self.weights(cycle)
         fast = self.fastest()
         d_min = fast.min_delay_ps
         t_ps = parse_target(target, d_min)
@@ -393,8 +407,17 @@ class Sizer:
 
     def finish(self, sol: Solution, t_ps: float, cycle: float) -> Sizing:
         """Turn a solver answer for target ``t_ps`` into a re-timed Sizing."""
-        d_min = self.fastest().min_delay_ps
+        if sol.status == INFEASIBLE and self.engine_name == "large" and self._fastest is None:
+            # an absolute target the large engine did not reach without the minimum delay:
+            # solve that now (raises below it); a reachable target is solved again from it
+            self.fastest()
+            req = self.request(t_ps)
+            if isinstance(req, Sizing):
+                return req
+            sol = self.engine.cheapest(self.model.to_tau(t_ps), req[2])
+        d_min = self._fastest.min_delay_ps if self._fastest is not None else None
         if sol.status == INFEASIBLE:
+            d_min = self.fastest().min_delay_ps
             raise InfeasibleTarget(
                 f"target {t_ps:.2f} ps cannot be met; the minimum achievable delay is "
                 f"{d_min:.2f} ps", d_min)
