@@ -291,15 +291,19 @@ class Circuit:
                 if src is not None:
                     succ[src].append(g.name)
                     indeg[g.name] += 1
+        # level by level (each gate after all its drivers, in rounds): gates of one logic
+        # level sit together, which keeps the solvers' sparse passes local in memory
         ready = [n for n, d in indeg.items() if d == 0]
         order: list[str] = []
         while ready:
-            n = ready.pop()
-            order.append(n)
-            for m in succ[n]:
-                indeg[m] -= 1
-                if indeg[m] == 0:
-                    ready.append(m)
+            order.extend(ready)
+            after: list[str] = []
+            for n in ready:
+                for m in succ[n]:
+                    indeg[m] -= 1
+                    if indeg[m] == 0:
+                        after.append(m)
+            ready = after
         if len(order) < len(self.gates):
             raise CircuitError("combinational loop through gates " + " -> ".join(
                 repr(g) for g in self._find_cycle(driver, {n for n, d in indeg.items() if d > 0})))

@@ -114,31 +114,34 @@ def compile_model(circuit: Circuit, tech: Technology) -> Model:
         out_net[k] = net
 
     efforts_cache: dict[str, object] = {}
+    per_type: dict[str, tuple] = {}      # gate.type -> what every gate of that type shares
+    inputs = circuit.inputs
     for name in st.order:
         i = index[name]
         gate = circuit.gates[name]
-        if gate.type not in efforts_cache:
-            efforts_cache[gate.type] = circuit.gate_type(gate.type).efforts(tech.mu, tech.p_inv)
-        eff = efforts_cache[gate.type]
-        gtype = circuit.gate_type(gate.type)
-        types.append(gtype.name)
-        p[i] = eff.p
+        known = per_type.get(gate.type)
+        if known is None:
+            gtype = circuit.gate_type(gate.type)
+            eff = gtype.efforts(tech.mu, tech.p_inv)
+            efforts_cache[gtype.name] = eff
+            known = per_type[gate.type] = (
+                gtype.name, float(eff.p), float(eff.area), float(eff.leak),
+                float(np.sum(eff.g)), tuple(gtype.pins), [float(v) for v in eff.g])
+        tname, p[i], area[i], leak[i], g_in[i], pins, g_pins = known
+        types.append(tname)
         copies[i] = gate.copies
-        area[i] = eff.area
-        leak[i] = eff.leak
-        g_in[i] = float(np.sum(eff.g))
         out_net[i] = gate.output
         if gate.size is not None:
             lo[i] = hi[i] = gate.size
         else:
             lo[i] = gate.size_min if gate.size_min is not None else circuit.size_min
             hi[i] = gate.size_max if gate.size_max is not None else circuit.size_max
-        for k, pin in enumerate(gtype.pins):
+        for pin, g_pin in zip(pins, g_pins):
             net = gate.inputs[pin]
             pin_node.append(i)
             pin_net.append(net)
-            pin_g.append(float(eff.g[k]))
-            port = circuit.inputs.get(net)
+            pin_g.append(g_pin)
+            port = inputs.get(net)
             if port is not None and port.drive is None:
                 t0[i] = max(t0[i], port.arrival_ps / tau)
 
