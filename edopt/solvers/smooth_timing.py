@@ -51,6 +51,7 @@ class SmoothTiming:
         has_in = np.bincount(dst, minlength=n) > 0
         mixed = np.flatnonzero(finite & has_in)
         self.N = n + mixed.size
+        self._mixed = mixed
         self.pseudo_t0 = m.t0[mixed]
         self.roots = ~has_in
         self.start = np.where(finite & ~has_in, m.t0, 0.0)
@@ -76,30 +77,33 @@ class SmoothTiming:
         self._triangle()
 
     def _triangle(self) -> None:
-        """Structure of ``I - M`` in topological order (CSC, diagonal first in each column):
-        one entry per distinct arc (parallel arcs weigh by their number)."""
-        n, N = self.model.n, self.N
-        rank = np.concatenate([self.model.level, np.full(N - n, -1)])
-        order = np.argsort(rank, kind="stable")          # position -> node
-        pos = np.empty(N, dtype=np.int64)
-        pos[order] = np.arange(N)                        # node -> position
-        key = pos[self.src] * N + pos[self.dst]          # column-major: (source, sink)
-        keys, first, count = np.unique(key, return_index=True, return_counts=True)
-        col, row = keys // N, keys % N
-        per_col = np.bincount(col, minlength=N) + 1      # the diagonal and the arcs
+        """Structure of ``I - M`` over the real nodes in the model's own order, which is
+        topological (every arc goes to a later node): CSC, the diagonal first in each column,
+        one entry per distinct arc (parallel arcs weigh by their number). Arcs from the pseudo
+        nodes (start times of nodes that also have fan-in) go to the right-hand side."""
+        n = self.model.n
+        real = self.src < n
+        if not np.all(self.src[real] < self.dst[real]):     # pragma: no cover - compile order
+            self.linear = False
+            return
+        key = self.src[real] * n + self.dst[real]            # column-major: (source, sink)
+        keys, count = np.unique(key, return_counts=True)
+        col, row = keys // n, keys % n
+        per_col = np.bincount(col, minlength=n) + 1          # the diagonal and the arcs
         indptr = np.concatenate([[0], np.cumsum(per_col)])
-        off = indptr[col] + 1 + (np.arange(keys.size) - np.searchsorted(keys, col * N))
+        off = indptr[col] + 1 + (np.arange(keys.size) - np.searchsorted(col, col))
         indices = np.empty(indptr[-1], dtype=np.intc)
-        indices[indptr[:-1]] = np.arange(N)
+        indices[indptr[:-1]] = np.arange(n)
         indices[off] = row
-        self._order, self._pos = order, pos
-        self._arc_src, self._arc_dst = self.src[first], self.dst[first]
+        self._arc_src, self._arc_dst = col, row
         self._arc_log = np.log(count.astype(float))
+        self._parallel = bool(np.any(count > 1))
         self._off = off
         self._indices, self._indptr = indices, indptr.astype(np.intc)
         self._data = np.ones(indptr[-1])
-        self._empty = (np.zeros(0), np.zeros(0, dtype=np.intc), np.zeros(N + 1, dtype=np.intc))
-        self._start_nodes = np.concatenate([np.flatnonzero(self.roots), np.arange(n, N)])
+        self._arc = np.empty(keys.size)
+        self._empty = (np.zeros(0), np.zeros(0, dtype=np.intc), np.zeros(n + 1, dtype=np.intc))
+        self._root_nodes = np.flatnonzero(self.roots)
 
     def delays(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Node delays (tau) and loads (C_u)."""
@@ -125,7 +129,7 @@ class SmoothTiming:
             b, share = self._forward(d, beta)
         else:
             self.solves += 1
-            b, z = found
+            b, z, r = found
         a = b / beta
         self._ref = a
         v = a[m.out_node] + m.out_allow
@@ -134,7 +138,7 @@ class SmoothTiming:
         out_share = zo / zo.sum()
         seed = np.zeros(self.N)
         np.add.at(seed, m.out_node, out_share)
-        flow = self._backward(seed, share) if found is None else self._adjoint(seed, z)
+        flow = self._backward(seed, share) if found is None else self._adjoint(seed, z, r)
         return top + math.log(zo.sum()) / beta, flow, out_share
 
     # ------------------------------------------------------------- level by level
@@ -157,43 +161,61 @@ class SmoothTiming:
         return flow
 
     # ------------------------------------------------------------- one triangular solve
-    def _by_solve(self, d: np.ndarray, beta: float) -> tuple[np.ndarray, np.ndarray] | None:
-        """Scaled arrivals and ``z = exp(b - l)`` by one triangular solve, or None when the
-        reference ``l`` is too far from them (module doc)."""
-        ref = beta * self._ref
+    def _by_solve(self, d: np.ndarray, beta: float
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+        """Scaled arrivals, ``z = exp(b - l)`` and the start terms ``r`` by one triangular
+        solve, or None when the reference ``l`` is too far from them (module doc)."""
+        n = self.model.n
+        ref = beta * self._ref[:n]
         bd = beta * d
+        q = bd - ref
+        arc = self._arc
         with np.errstate(over="ignore", under="ignore"):
-            self._data[self._off] = -np.exp(bd[self._arc_dst] + ref[self._arc_src]
-                                            - ref[self._arc_dst] + self._arc_log)
-            r = np.zeros(self.N)
-            s = self._start_nodes
-            b0 = np.concatenate([beta * (self.start + d), beta * self.pseudo_t0])
-            r[s] = np.exp(b0[s] - ref[s])
-        z = self._solve(r[self._order], "N")[self._pos]
+            np.take(q, self._arc_dst, out=arc)
+            arc += ref[self._arc_src]
+            if self._parallel:
+                arc += self._arc_log
+            np.exp(arc, out=arc)
+            np.negative(arc, out=arc)
+            self._data[self._off] = arc
+            r = np.zeros(n)
+            roots, mixed = self._root_nodes, self._mixed
+            r[roots] = np.exp(beta * self.start[roots] + q[roots])
+            r[mixed] = np.exp(beta * self.pseudo_t0 + q[mixed])
+        z = self._solve(r, "N")
         with np.errstate(divide="ignore", invalid="ignore"):
             logz = np.log(z)
         if not np.all(np.abs(logz) <= LOG_RANGE):
             return None
-        return ref + logz, z
+        b = np.empty(self.N)
+        b[:n] = ref + logz
+        b[n:] = beta * self.pseudo_t0
+        return b, z, r
 
-    def _adjoint(self, seed: np.ndarray, z: np.ndarray) -> np.ndarray:
-        phi = self._solve((seed / z)[self._order], "T")[self._pos]
-        return z * phi
+    def _adjoint(self, seed: np.ndarray, z: np.ndarray, r: np.ndarray) -> np.ndarray:
+        """Node flows from the transposed solve; a pseudo node takes its node's flow times
+        the share of the start term in that node's sum."""
+        n = self.model.n
+        flow = np.empty(self.N)
+        flow[:n] = z * self._solve(seed[:n] / z, "T")
+        mixed = self._mixed
+        flow[n:] = flow[mixed] * r[mixed] / z[mixed]
+        return flow
 
     def _solve(self, rhs: np.ndarray, trans: str) -> np.ndarray:
         """``(I - M) y = rhs`` (trans "N") or its transpose (trans "T"), in topological order."""
-        N = self.N
+        n = self.model.n
         if _gstrs is not None:
             e_data, e_ind, e_ptr = self._empty
-            y, info = _gstrs(trans, N, self._data.size, self._data, self._indices, self._indptr,
-                             N, 0, e_data, e_ind, e_ptr, rhs)
+            y, info = _gstrs(trans, n, self._data.size, self._data, self._indices, self._indptr,
+                             n, 0, e_data, e_ind, e_ptr, rhs)
             if info == 0:
                 return y
-        L = sp.csc_array((self._data, self._indices, self._indptr), shape=(N, N))
         if trans == "T":
-            L = sp.csr_array((self._data, self._indices, self._indptr), shape=(N, N))
-            return spsolve_triangular(L, rhs, lower=False, unit_diagonal=True)
-        return spsolve_triangular(L, rhs, lower=True, unit_diagonal=True)
+            upper = sp.csr_array((self._data, self._indices, self._indptr), shape=(n, n))
+            return spsolve_triangular(upper, rhs, lower=False, unit_diagonal=True)
+        lower = sp.csc_array((self._data, self._indices, self._indptr), shape=(n, n))
+        return spsolve_triangular(lower, rhs, lower=True, unit_diagonal=True)
 
     def start_value(self, flow: np.ndarray, out_share: np.ndarray) -> float:
         """Constant part of the Lagrangian per unit flow: start times and output allowances."""
