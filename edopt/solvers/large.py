@@ -65,7 +65,7 @@ STEP_FTOL = 1e-9        # an inner minimisation ends when a step gains less than
 FAST_FTOL = 1e-7        # ... (minimum-delay solve)
 STEP_ITERS = 4000       # L-BFGS iterations per inner minimisation (at most)
 MEMORY = 10             # L-BFGS correction pairs
-BUDGET = 3000           # cheapest: iterations per solve; then the best answer found is returned
+BUDGET = 1500           # cheapest: iterations per solve; then the best answer found is returned
 FAST_BUDGET = 8000      # fastest: likewise
 BOUND_SWEEPS = 5        # closed-form sweeps before each certified bound (cheapest) ...
 FAST_BOUND_SWEEPS = 30  # ... and for the minimum-delay bound (no energy curvature to lean on)
@@ -74,6 +74,7 @@ FAST_BOUND_FROM = 16.0  # the minimum-delay bound is computed from this sharpnes
 TIE = 1e-5              # fastest: weight of the normalised objective beside the delay
 CURVE_FLOOR = 1.0       # the diagonal start of L-BFGS is floored at this multiple of its mean
 SLACK_SHARE = 0.25      # the unused delay of an answer may cost this share of the gap
+PREDICT = 0.5           # the next stage starts this share of the last move further
 SOLVES = 5              # multiplier solves per stage (at most)
 SLOPE_START = -0.1      # d log(delay) / d log(lam) before any is measured
 SLOPE_RANGE = (-1.0, -0.002)
@@ -125,6 +126,28 @@ class _Count:
     iterations: int = 0
     evaluations: int = 0
     notes: list[str] = field(default_factory=list)
+
+
+@dataclass
+class _Job:
+    """The state of one cheapest solve between its stages (``LargeSizer._step``)."""
+
+    T: float
+    w: np.ndarray
+    count: _Count
+    started: float
+    y: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    lam: float = 0.0
+    lam_first: float = 0.0
+    sharp: float = SHARP_FIRST
+    best: tuple[np.ndarray, float, float, float] | None = None   # x, energy, delay, lam
+    lower: float = -math.inf
+    gap: float = math.inf
+    room: float = 1e-3                  # relative delay an answer may leave unused
+    stages: dict[float, _Stage] = field(default_factory=dict)
+    history: list[tuple[float, float]] = field(default_factory=list)   # (sharpness, log lam)
+    landed_before: np.ndarray | None = None
+    done: bool = False
 
 
 class LargeSizer:
@@ -311,7 +334,7 @@ class LargeSizer:
         aim = -0.5 * room
         d0 = self._true(y)
         fa, ta = math.log(d0 / T) - aim, 0.0
-        if abs(fa) <= 0.5 * room:
+        if -room <= fa + aim <= 0:
             return y, d0
         tb = -(fa * T) / slope if slope < 0 else 1.0
         fb = math.log(self._true(at(tb)) / T) - aim
@@ -329,7 +352,10 @@ class LargeSizer:
                 fb: float, T: float, aim: float, room: float
                 ) -> tuple[np.ndarray, float, float] | None:
         """Safeguarded secant on ``log(D(at(t)) / T) - aim`` within a bracket ``ta, tb``:
-        the log sizes, their true delay and ``t``."""
+        the log sizes, their true delay and ``t`` of a point whose true delay is within
+        ``room`` (relative) below ``T``, else of the feasible point closest to the bound seen
+        (None if none was)."""
+        best: tuple[np.ndarray, float, float] | None = None
         for _ in range(40):
             lo, hi = min(ta, tb), max(ta, tb)
             tm = ta - fa * (tb - ta) / (fb - fa)
@@ -337,13 +363,17 @@ class LargeSizer:
             y = at(tm)
             dm = self._true(y)
             fm = math.log(dm / T) - aim
-            if abs(fm) <= 0.5 * room:
+            if -room <= fm + aim <= 0:          # on the bound, within the room
                 return y, dm, tm
+            if dm <= T and (best is None or dm > best[1]):
+                best = (y, dm, tm)
             if (fm > 0) == (fa > 0):
                 ta, fa = tm, fm
             else:
                 tb, fb = tm, fm
-        return None
+            if hi - lo < 1e-12:
+                break
+        return best
 
     def _solve_at(self, y: np.ndarray, w: np.ndarray, log_lam: float, beta: float, T: float,
                   count: _Count) -> _Point:
@@ -447,88 +477,106 @@ class LargeSizer:
 
         Status infeasible when no sizing meeting the bound was found (the bound may be below
         the minimum delay; ``fastest`` tells)."""
-        t0 = time.perf_counter()
-        T = float(bound_tau)
-        w = np.asarray(weights, dtype=float)
-        count = _Count()
+        job = self._open(float(bound_tau), np.asarray(weights, dtype=float))
+        while not job.done:
+            self._step(job)
+        return self._close(job)
+
+    def _open(self, T: float, w: np.ndarray) -> _Job:
+        """A solve for bound ``T``, before its first stage (done at once when the smallest
+        sizing meets the bound)."""
+        job = _Job(T, w, _Count(), time.perf_counter())
         # the cheapest sizing of all (every free gate at its lower bound) may meet the bound
         d_lo = self._true(np.log(self._x_lo))
         if d_lo <= T:
             energy = float(w @ self._x_lo)
-            return LargeSolution(
-                self._x_lo.copy(), d_lo, energy, 0.0, OPTIMAL, "large",
-                time.perf_counter() - t0,
-                ["large: the bound is slack at the smallest sizes (exact optimum)"],
-                lower=energy, gap=0.0, iterations=0, evaluations=1)
-        y, lam, sharp = self._start(T, w)
-        lam_first = lam
-        best: tuple[np.ndarray, float, float, float] | None = None   # x, energy, delay, lam
+            job.best, job.lower, job.gap, job.done = (self._x_lo.copy(), energy, d_lo, 0.0), \
+                energy, 0.0, True
+            job.count.notes.append("the bound is slack at the smallest sizes (exact optimum)")
+            return job
+        job.y, job.lam, job.sharp = self._start(T, w)
+        job.lam_first = job.lam
         if self._fast_y is not None and self._fast_delay is not None and self._fast_delay <= T:
             x_fast = np.exp(self._fast_y)     # the answer is never worse than the fastest
-            best = (x_fast, float(w @ x_fast), self._fast_delay, math.nan)
-        lower, gap, room = -math.inf, math.inf, 1e-3
-        stages: dict[float, _Stage] = {}
-        history: list[tuple[float, float]] = []    # (sharpness, log lam) of the stage answers
-        landed_before: np.ndarray | None = None
-        while True:
-            beta = sharp * self.depth / T
-            y_s, d_s, lam_s, points = self._stage(y, w, lam, beta, T, count, room)
-            for p in points[-2:]:
-                lower = max(lower, self._lower(p.y, w, math.exp(p.log_lam), beta, T))
-            if y_s is not None:
-                energy = float(w @ np.exp(y_s))
-                room = SLACK_SHARE * self.gap * energy / max(lam_s * T, 1e-300)
-                if best is None or energy < best[1]:
-                    best = (np.exp(y_s), energy, d_s, lam_s)
-                if landed_before is not None:
-                    # Richardson extrapolation of the stage answers in 1 / sharpness
-                    ex = np.where(self.free,
-                                  np.clip(2 * y_s - landed_before, self.log_lo, self.log_hi), y_s)
-                    v, slope = self._direction(y_s, w, lam_s, beta)
-                    landed = self._land_along(ex, v, slope, T, room)
-                    if landed is not None:
-                        e_ex = float(w @ np.exp(landed[0]))
-                        if e_ex < best[1]:
-                            best = (np.exp(landed[0]), e_ex, landed[1], lam_s)
-                landed_before = y_s.copy()
-                stages[sharp] = _Stage(y_s.copy(), lam_s, d_s)
-                history.append((sharp, math.log(lam_s)))
-                y, lam = y_s, lam_s
-            else:
-                y, lam = points[-1].y, math.exp(points[-1].log_lam)
-                count.notes.append(f"sharpness {sharp:g}: bound not reached")
-                if lam > LAM_RANGE * lam_first and self._fast_y is None:
-                    break
-            gap = (best[1] - lower) / lower if best is not None and lower > 0 else math.inf
-            if gap <= self.gap or sharp >= SHARP_TOP or (
-                    count.iterations > BUDGET and best is not None):
-                break
-            if len(history) >= 2:
-                # the multiplier falls with the sharpness, about in proportion to 1 / sharpness
-                (s1, l1), (s2, l2) = history[-2:]
-                shift = (l1 - l2) / (1 / s1 - 1 / s2) * (1 / (SHARP_GROWTH * sharp) - 1 / sharp)
-                lam *= math.exp(max(-0.5, min(0.5, shift)))
-            sharp *= SHARP_GROWTH
-        if stages:
-            self._solved.append((T, stages))
-        seconds = time.perf_counter() - t0
-        if best is None:
+            job.best = (x_fast, float(w @ x_fast), self._fast_delay, math.nan)
+        return job
+
+    def _step(self, job: _Job) -> None:
+        """One stage of ``job`` at its sharpness: the stage answer, the bounds of its solves,
+        the extrapolated point; then the next stage's start, or done."""
+        T, w, count, sharp = job.T, job.w, job.count, job.sharp
+        beta = sharp * self.depth / T
+        y_s, d_s, lam_s, points = self._stage(job.y, w, job.lam, beta, T, count, job.room)
+        for p in points[-2:]:
+            job.lower = max(job.lower, self._lower(p.y, w, math.exp(p.log_lam), beta, T))
+        if y_s is not None:
+            energy = float(w @ np.exp(y_s))
+            job.room = SLACK_SHARE * self.gap * energy / max(lam_s * T, 1e-300)
+            if job.best is None or energy < job.best[1]:
+                job.best = (np.exp(y_s), energy, d_s, lam_s)
+            before = job.landed_before
+            if before is not None:
+                # Richardson extrapolation of the stage answers in 1 / sharpness
+                ex = np.where(self.free, np.clip(2 * y_s - before, self.log_lo, self.log_hi),
+                              y_s)
+                v, slope = self._direction(y_s, w, lam_s, beta)
+                landed = self._land_along(ex, v, slope, T, job.room)
+                if landed is not None:
+                    e_ex = float(w @ np.exp(landed[0]))
+                    if e_ex < job.best[1]:
+                        job.best = (np.exp(landed[0]), e_ex, landed[1], lam_s)
+            # the next stage starts where the answers move with the sharpness (about
+            # y* + b / sharpness: half the last move again)
+            job.y = y_s if before is None else np.where(
+                self.free, np.clip(y_s + PREDICT * (y_s - before), self.log_lo, self.log_hi),
+                y_s)
+            job.landed_before = y_s.copy()
+            job.stages[sharp] = _Stage(y_s.copy(), lam_s, d_s)
+            job.history.append((sharp, math.log(lam_s)))
+            job.lam = lam_s
+        else:
+            job.y, job.lam = points[-1].y, math.exp(points[-1].log_lam)
+            count.notes.append(f"sharpness {sharp:g}: bound not reached")
+            if job.lam > LAM_RANGE * job.lam_first and self._fast_y is None:
+                job.done = True
+        best, lower = job.best, job.lower
+        job.gap = (best[1] - lower) / lower if best is not None and lower > 0 else math.inf
+        if job.gap <= self.gap or sharp >= SHARP_TOP or (
+                count.iterations > BUDGET and best is not None):
+            job.done = True
+        if job.done:
+            return
+        if len(job.history) >= 2:
+            # the multiplier falls with the sharpness, about in proportion to 1 / sharpness
+            (s1, l1), (s2, l2) = job.history[-2:]
+            shift = (l1 - l2) / (1 / s1 - 1 / s2) * (1 / (SHARP_GROWTH * sharp) - 1 / sharp)
+            job.lam *= math.exp(max(-0.5, min(0.5, shift)))
+        job.sharp = sharp * SHARP_GROWTH
+
+    def _close(self, job: _Job) -> LargeSolution:
+        """The answer of a finished solve (its stages kept for warm starts)."""
+        count = job.count
+        if job.stages:
+            self._solved.append((job.T, job.stages))
+        seconds = time.perf_counter() - job.started
+        if job.best is None:
             return LargeSolution(
-                np.exp(y), math.nan, math.nan, math.nan, INFEASIBLE, "large", seconds,
-                [f"large: bound {T:.6g} tau not met at any sharpness; "
+                np.exp(job.y), math.nan, math.nan, math.nan, INFEASIBLE, "large", seconds,
+                [f"large: bound {job.T:.6g} tau not met at any sharpness; "
                  + ", ".join(count.notes[-3:])],
-                lower=lower, iterations=count.iterations, evaluations=count.evaluations,
-                sharpness=sharp)
-        x, energy, delay, lam = best
-        status = OPTIMAL if gap <= self.gap else INACCURATE
+                lower=job.lower, iterations=count.iterations, evaluations=count.evaluations,
+                sharpness=job.sharp)
+        x, energy, delay, lam = job.best
+        status = OPTIMAL if job.gap <= self.gap else INACCURATE
         if not math.isfinite(lam):
-            lam = stages[max(stages)].lam if stages else 0.0
+            lam = job.stages[max(job.stages)].lam if job.stages else 0.0
+        note = count.notes[-1] if job.gap == 0 and count.notes else (
+            f"{count.iterations} iterations to sharpness {job.sharp:g}, certified gap "
+            f"{job.gap:.2e} ({status})")
         return LargeSolution(
-            x, delay, energy, lam, status, "large", seconds,
-            [f"large: {count.iterations} iterations to sharpness {sharp:g}, certified gap "
-             f"{gap:.2e} ({status})"],
-            lower=lower, gap=gap, iterations=count.iterations, evaluations=count.evaluations,
-            sharpness=sharp)
+            x, delay, energy, lam, status, "large", seconds, [f"large: {note}"],
+            lower=job.lower, gap=job.gap, iterations=count.iterations,
+            evaluations=count.evaluations, sharpness=job.sharp)
 
     def _start(self, T: float, w: np.ndarray) -> tuple[np.ndarray, float, float]:
         """Log sizes, multiplier and first sharpness of a solve for bound ``T``."""
@@ -543,6 +591,7 @@ class LargeSizer:
             want = max(sharp, max(stages) / WARM_BACK)
             s = min(stages, key=lambda k: abs(math.log(k / want)))
             near = stages[s]
+            # the price of delay rises about as 1 / (T - D_min) near the minimum delay
             lam = near.lam
             pole = self._fast[s][1] if s in self._fast else d_min
             if pole is not None and T > pole and t_near > pole:
