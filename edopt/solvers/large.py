@@ -79,6 +79,7 @@ SOLVES = 5              # multiplier solves per stage (at most)
 SLOPE_START = -0.1      # d log(delay) / d log(lam) before any is measured
 SLOPE_RANGE = (-1.0, -0.002)
 LAM_STEP = (3e-3, 2.0)  # least and largest multiplier step (log) of a secant step
+OVERSHOOT = 0.1         # a bracketing step aims this share of the miss past the aim
 REACH = 0.5             # cold start: first sharpness whose minimum delay left this share of room
 WARM_BACK = 4.0         # warm start: this factor below the neighbour's last sharpness
 KEEP = 3                # solved bounds kept for warm starts (each keeps its stage answers)
@@ -407,8 +408,8 @@ class LargeSizer:
                     return y_l, d_l, math.exp(a.log_lam + s * (b.log_lam - a.log_lam)), points
                 ll = b.log_lam + (aim - b.r) * (a.log_lam - b.log_lam) / (a.r - b.r)
             else:
-                # overshoot across the aim by half the distance, so the next solve brackets it
-                step = (aim - 0.5 * (p.r - aim) - p.r) / self._slope
+                # overshoot across the aim a little, so the next solve brackets it
+                step = (aim - OVERSHOOT * (p.r - aim) - p.r) / self._slope
                 ll = p.log_lam + math.copysign(min(LAM_STEP[1], max(LAM_STEP[0], abs(step))),
                                                step)
             q = self._solve_at(p.y, w, ll, beta, T, count)
