@@ -31,14 +31,15 @@ _ENGINE: ConicSizer | LargeSizer | None = None
 
 
 def _start(model: Model, options: Options, large: dict | None = None) -> None:
-    """Compile the worker's engine: the reference one, or (``large``: the LargeSizer's gap and
-    its ``fast_state``) the large one."""
+    """Compile the worker's engine: the reference one, or (``large``: the LargeSizer's gap,
+    its ``fast_state`` and budget) the large one."""
     global _ENGINE
     if large is None:
         _ENGINE = ConicSizer(model, options)
     else:
         engine = LargeSizer(model, options, gap=large["gap"])
         engine.set_fast_state(large["fast"])
+        engine.budget = large["budget"]
         _ENGINE = engine
 
 
@@ -77,7 +78,8 @@ def solve_bounds(model: Model, options: Options, jobs: Sequence[tuple[int, float
 
     Jobs are handed out in order so each worker moves along the frontier. ``large``: solve with
     copies of this large engine (its gap and minimum-delay solve) instead of the reference."""
-    state = None if large is None else {"gap": large.gap, "fast": large.fast_state()}
+    state = None if large is None else {"gap": large.gap, "fast": large.fast_state(),
+                                        "budget": large.budget}
     # a fresh server process forks the workers: no solver threads of this process are copied.
     # It inherits this process's environment when it starts, before any worker imports numpy:
     # one BLAS thread per worker (measured on 2 CPUs: two large-engine solves at once, each

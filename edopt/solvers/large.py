@@ -65,7 +65,8 @@ STEP_FTOL = 1e-9        # an inner minimisation ends when a step gains less than
 FAST_FTOL = 1e-7        # ... (minimum-delay solve)
 STEP_ITERS = 4000       # L-BFGS iterations per inner minimisation (at most)
 MEMORY = 10             # L-BFGS correction pairs
-BUDGET = 1500           # cheapest: iterations per solve; then the best answer found is returned
+BUDGET = 3000           # cheapest: iterations per solve; then the best answer found is returned
+SWEEP_BUDGET = 1500     # ... per bound of a frontier sweep (``budget``)
 FAST_BUDGET = 8000      # fastest: likewise
 BOUND_SWEEPS = 5        # closed-form sweeps before each certified bound (cheapest) ...
 FAST_BOUND_SWEEPS = 30  # ... and for the minimum-delay bound (no energy curvature to lean on)
@@ -156,7 +157,9 @@ class LargeSizer:
 
     ``gap``: relative gap at which a solve stops (default 0.1 %). Answers carry ``lower``,
     ``gap`` and ``iterations``; ``status`` is optimal when the certified gap is within ``gap``.
-    ``warm``: start each bound from the nearest one solved (default True).
+    ``warm``: start each bound from the nearest one solved (default True). ``budget``:
+    iterations after which a cheapest solve returns its best answer (``BUDGET``; frontier
+    sweeps use ``SWEEP_BUDGET``).
     """
 
     def __init__(self, model: Model, options: Options | None = None, gap: float = GAP) -> None:
@@ -183,13 +186,13 @@ class LargeSizer:
         self.depth = max(1, int(model.level.max()) if model.n else 1)
         self._y0 = np.log(np.clip(np.ones(model.n), model.lo, model.hi))
         self._x_lo = np.where(self.free, model.lo, np.exp(self._y0))   # the smallest sizing
-        # every free gate's least curvature in the size box per unit weight (bounds)
         self._fast: dict[float, tuple[np.ndarray, float]] = {}  # minimum-delay stage answers
         self._fast_y: np.ndarray | None = None
         self._fast_delay: float | None = None
         self._solved: deque[tuple[float, dict[float, _Stage]]] = deque(maxlen=KEEP)
         self._slope = SLOPE_START
         self.warm = True
+        self.budget = BUDGET
 
     # ------------------------------------------------------------- state for workers
     def fast_state(self) -> dict | None:
@@ -543,7 +546,7 @@ class LargeSizer:
         best, lower = job.best, job.lower
         job.gap = (best[1] - lower) / lower if best is not None and lower > 0 else math.inf
         if job.gap <= self.gap or sharp >= SHARP_TOP or (
-                count.iterations > BUDGET and best is not None):
+                count.iterations > self.budget and best is not None):
             job.done = True
         if job.done:
             return
@@ -606,4 +609,4 @@ class LargeSizer:
         return y, lam, sharp
 
 
-__all__ = ["GAP", "LargeSizer", "LargeSolution", "SmoothTiming"]
+__all__ = ["GAP", "SWEEP_BUDGET", "LargeSizer", "LargeSolution", "SmoothTiming"]
