@@ -456,12 +456,17 @@ class LargeSizer:
                 d_ex = self._true(ex)
                 if d_ex < best:
                     best_y, best = ex, d_ex
-            previous = y.copy()
-            if sharp >= FAST_BOUND_FROM:
+            # the delays of successive stages close in about as 1 / sharpness: the bound (whose
+            # polish costs about as much as a stage) is worth computing once the extrapolated
+            # minimum is within the gap of the best delay
+            settled = len(stages) >= 2 and (
+                best - (2 * delay - stages[sharp / SHARP_GROWTH][1])) <= self.gap * best
+            if sharp >= FAST_BOUND_FROM and (settled or sharp >= SHARP_TOP):
                 d, _ = t.delays(np.exp(y))
                 _, flow, share = t.smooth(d, beta)
                 lower = max(lower, self._bound(flow[:m.n], np.zeros(m.n), y, FAST_BOUND_SWEEPS,
                                                FAST_BOUND_POLISH) + t.start_value(flow, share))
+            previous = y.copy()
             gap = (best - lower) / lower if lower > 0 else math.inf
             d0 = delay
             if gap <= self.gap or sharp >= SHARP_TOP or count.iterations > FAST_BUDGET:
