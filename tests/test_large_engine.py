@@ -14,10 +14,11 @@ import numpy as np
 import pytest
 
 import edopt
+from edopt.circuit import chain
 from edopt.errors import EdoptError, InfeasibleTarget
 from edopt.generators import random_layered
 from edopt.sizing import LARGE_GATES, Sizer
-from edopt.solvers.large import BUDGET, SmoothTiming
+from edopt.solvers.large import BUDGET, LargeSizer, SmoothTiming
 from edopt.structures import generate
 from edopt.timing import evaluate
 
@@ -247,6 +248,15 @@ def test_certified_bound_against_scipy() -> None:
         assert bound <= ref.fun * (1 + 1e-12)
     assert far < near <= ref.fun
     assert at_opt == pytest.approx(ref.fun, rel=1e-6)
+
+
+def test_minimum_delay_start_is_a_fan_out_of_four() -> None:
+    """The minimum-delay solve starts from sizes with a fan-out of 4 per gate (common
+    practice), from the output back: an inverter chain with input 1 and load 256 starts at
+    1, 4, 16, 64 (the first gate's size is fixed by its input capacitance)."""
+    c = chain(["inv"] * 4, cin=1.0, cload=256.0)
+    engine = LargeSizer(Sizer(c, engine="large").model)
+    assert np.exp(engine._effort_start()) == pytest.approx([1.0, 4.0, 16.0, 64.0])
 
 
 def test_absolute_target_skips_the_minimum_delay() -> None:
