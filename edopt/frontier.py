@@ -174,7 +174,7 @@ def frontier(
         # end down (measured on 10^4 gates, 25 points: 22 % less time than upwards, and more
         # points within the gap; the steep end starts from neighbours that are solved well).
         # Two workers take alternate bounds, each warm-starting from its own previous one.
-        # Each bound gets the sweep's budget: points within about 2 % of the minimum delay
+        # Each bound gets the sweep's budget: points within about 3 % of the minimum delay
         # end inaccurate with their certified gap rather than hold up the whole sweep.
         jobs.reverse()
         budget, large.budget = large.budget, min(large.budget, SWEEP_BUDGET)

@@ -260,6 +260,10 @@ class LargeSizer:
                 x[nodes] = np.clip(load / EFFORT_START, m.lo[nodes], m.hi[nodes])
         return np.log(x)
 
+    def _moved(self, y: np.ndarray, step: np.ndarray) -> np.ndarray:
+        """``y + step`` on the free gates, within their size bounds (fixed gates stay)."""
+        return np.where(self.free, np.clip(y + step, self.log_lo, self.log_hi), y)
+
     def _true(self, y: np.ndarray) -> float:
         t = self.timing
         return t.true_delay(t.delays(np.exp(y))[0])
@@ -350,7 +354,7 @@ class LargeSizer:
         """The point ``y + t v`` (clipped to the box) whose true delay is within ``room``
         (relative) below ``T``: secant steps on ``t``, true-delay evaluations only."""
         def at(s: float) -> np.ndarray:
-            return np.where(self.free, np.clip(y + s * v, self.log_lo, self.log_hi), y)
+            return self._moved(y, s * v)
 
         aim = -0.5 * room
         d0 = self._true(y)
@@ -470,7 +474,7 @@ class LargeSizer:
             if delay < best:
                 best_y, best = y.copy(), delay
             if previous is not None:     # Richardson extrapolation in 1 / sharpness
-                ex = np.where(self.free, np.clip(2 * y - previous, self.log_lo, self.log_hi), y)
+                ex = self._moved(y, y - previous)
                 d_ex = self._true(ex)
                 if d_ex < best:
                     best_y, best = ex, d_ex
@@ -549,8 +553,7 @@ class LargeSizer:
             before = job.landed_before
             if before is not None:
                 # Richardson extrapolation of the stage answers in 1 / sharpness
-                ex = np.where(self.free, np.clip(2 * y_s - before, self.log_lo, self.log_hi),
-                              y_s)
+                ex = self._moved(y_s, y_s - before)
                 v, slope = self._direction(y_s, w, lam_s, beta)
                 landed = self._land_along(ex, v, slope, T, job.room)
                 if landed is not None:
@@ -559,9 +562,7 @@ class LargeSizer:
                         job.best = (np.exp(landed[0]), e_ex, landed[1], lam_s)
             # the next stage starts where the answers move with the sharpness (about
             # y* + b / sharpness: half the last move again)
-            job.y = y_s if before is None else np.where(
-                self.free, np.clip(y_s + PREDICT * (y_s - before), self.log_lo, self.log_hi),
-                y_s)
+            job.y = y_s if before is None else self._moved(y_s, PREDICT * (y_s - before))
             job.landed_before = y_s.copy()
             job.stages[sharp] = _Stage(y_s.copy(), lam_s, d_s)
             job.history.append((sharp, math.log(lam_s)))
