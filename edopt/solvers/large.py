@@ -26,6 +26,9 @@ iteration is a few vectorised passes over the timing graph (``smooth_timing.py``
   box, so its value at any point plus the least value of the matching quadratic model over the
   box bounds its minimum from below (a few closed-form sweeps first move the point closer). The
   relative gap between the best feasible sizing and the best bound is the stopping rule.
+* **Slack recovery.** The minimum-delay answer, and an answer that ends its budget short of
+  the gap rule, are shrunk into their exact-timing slack (``downsize.py``), which only lowers
+  the energy and keeps the bound.
 * **Warm starts.** Each solve keeps its stage answers; a later bound starts from the nearest
   bound solved, a few stages below its last sharpness, the multiplier scaled as the price of
   delay near the minimum delay (``1 / (T - D_min)``). A cold start at a bound close to the
@@ -53,6 +56,7 @@ import numpy as np
 from ..errors import EdoptError
 from ..model import Model
 from .conic import INACCURATE, INFEASIBLE, OPTIMAL, Options, Solution
+from .downsize import Downsizer
 from .quasi_newton import minimise_box
 from .smooth_timing import SmoothTiming
 
@@ -192,6 +196,7 @@ class LargeSizer:
         self._fast_delay: float | None = None
         self._solved: deque[tuple[float, dict[float, _Stage]]] = deque(maxlen=KEEP)
         self._slope = SLOPE_START
+        self._downsizer: Downsizer | None = None
         self.warm = True
         self.budget = BUDGET
 
@@ -263,6 +268,13 @@ class LargeSizer:
     def _moved(self, y: np.ndarray, step: np.ndarray) -> np.ndarray:
         """``y + step`` on the free gates, within their size bounds (fixed gates stay)."""
         return np.where(self.free, np.clip(y + step, self.log_lo, self.log_hi), y)
+
+    def _downsized(self, x: np.ndarray, w: np.ndarray, bound: float
+                   ) -> tuple[np.ndarray, float, int]:
+        """Slack recovery of sizes ``x`` that meet ``bound`` (``downsize.py``)."""
+        if self._downsizer is None:
+            self._downsizer = Downsizer(self.timing, self.free)
+        return self._downsizer(x, w, bound)
 
     def _true(self, y: np.ndarray) -> float:
         t = self.timing
@@ -499,12 +511,16 @@ class LargeSizer:
                     or stalled:
                 break
             sharp *= SHARP_GROWTH
+        # the off-critical gates had only the tie weight to shrink them: recover their slack
+        x_best, best, rounds = self._downsized(np.exp(best_y), w0, best)
+        best_y = np.log(x_best)
+        gap = (best - lower) / lower if lower > 0 else math.inf
         self._fast, self._fast_y, self._fast_delay = stages, best_y.copy(), best
         status = OPTIMAL if gap <= self.gap else INACCURATE
         return LargeSolution(
-            np.exp(best_y), best, best, 0.0, status, "large", time.perf_counter() - t0,
+            x_best, best, best, 0.0, status, "large", time.perf_counter() - t0,
             [f"large: {count.iterations} iterations to sharpness {sharp:g}, certified gap "
-             f"{gap:.2e} ({status})"],
+             f"{gap:.2e} ({status}); {rounds} rounds of slack recovery"],
             lower=lower, gap=gap, iterations=count.iterations, evaluations=count.evaluations,
             sharpness=sharp)
 
@@ -587,28 +603,35 @@ class LargeSizer:
         job.sharp = sharp * SHARP_GROWTH
 
     def _close(self, job: _Job) -> LargeSolution:
-        """The answer of a finished solve (its stages kept for warm starts)."""
+        """The answer of a finished solve (its stages kept for warm starts); an answer short
+        of the gap rule (budget spent) first has its slack recovered (``downsize.py``)."""
         count = job.count
         if job.stages:
             self._solved.append((job.T, job.stages))
-        seconds = time.perf_counter() - job.started
         if job.best is None:
             return LargeSolution(
-                np.exp(job.y), math.nan, math.nan, math.nan, INFEASIBLE, "large", seconds,
+                np.exp(job.y), math.nan, math.nan, math.nan, INFEASIBLE, "large",
+                time.perf_counter() - job.started,
                 [f"large: bound {job.T:.6g} tau not met at any sharpness; "
                  + ", ".join(count.notes[-3:])],
                 lower=job.lower, iterations=count.iterations, evaluations=count.evaluations,
                 sharpness=job.sharp)
         x, energy, delay, lam = job.best
+        recovered = ""
+        if job.gap > self.gap:
+            x, delay, rounds = self._downsized(x, job.w, job.T)
+            energy = float(job.w @ x)
+            job.gap = (energy - job.lower) / job.lower if job.lower > 0 else math.inf
+            recovered = f"; {rounds} rounds of slack recovery"
         status = OPTIMAL if job.gap <= self.gap else INACCURATE
         if not math.isfinite(lam):
             lam = job.stages[max(job.stages)].lam if job.stages else 0.0
         note = count.notes[-1] if job.gap == 0 and count.notes else (
             f"{count.iterations} iterations to sharpness {job.sharp:g}, certified gap "
-            f"{job.gap:.2e} ({status})")
+            f"{job.gap:.2e} ({status}){recovered}")
         return LargeSolution(
-            x, delay, energy, lam, status, "large", seconds, [f"large: {note}"],
-            lower=job.lower, gap=job.gap, iterations=count.iterations,
+            x, delay, energy, lam, status, "large", time.perf_counter() - job.started,
+            [f"large: {note}"], lower=job.lower, gap=job.gap, iterations=count.iterations,
             evaluations=count.evaluations, sharpness=job.sharp)
 
     def _start(self, T: float, w: np.ndarray) -> tuple[np.ndarray, float, float]:

@@ -110,14 +110,30 @@ class SmoothTiming:
         load = self.P @ x + self.model.fixed_load
         return self.model.p + load / x, load
 
-    def true_delay(self, d: np.ndarray) -> float:
+    def arrivals(self, d: np.ndarray) -> np.ndarray:
+        """Exact arrival times (tau) at every node's output (``N`` entries, pseudo nodes last)."""
         a = np.empty(self.N)
         a[:self.model.n] = self.start + d
         a[self.model.n:] = self.pseudo_t0
         for s, e, u, first, *_ in self.levels:
             a[u] = np.maximum.reduceat(a[self.src[s:e]], first) + d[u]
+        return a
+
+    def true_delay(self, d: np.ndarray) -> float:
         m = self.model
-        return float(np.max(a[m.out_node] + m.out_allow))
+        return float(np.max(self.arrivals(d)[m.out_node] + m.out_allow))
+
+    def required(self, d: np.ndarray, bound: float) -> np.ndarray:
+        """Latest arrival (tau) at each real node's output for every output to meet ``bound``
+        (``inf`` where no output is reached)."""
+        m = self.model
+        q = np.full(self.N, np.inf)
+        np.minimum.at(q, m.out_node, bound - m.out_allow)
+        for s, e, _u, _first, perm, heads_node, heads in reversed(self.levels):
+            dst = self.dst[s:e]
+            later = np.minimum.reduceat((q[dst] - d[dst])[perm], heads)
+            q[heads_node] = np.minimum(q[heads_node], later)
+        return q[:m.n]
 
     def smooth(self, d: np.ndarray, beta: float) -> tuple[float, np.ndarray, np.ndarray]:
         """Smoothed circuit delay, its adjoint per node (``N`` entries: the node flows of a unit
