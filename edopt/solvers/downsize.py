@@ -38,8 +38,10 @@ class Downsizer:
         order = order[free[order]]
         cuts = np.flatnonzero(np.diff(m.level[order])) + 1
         P = timing.P
-        self.groups = [(nodes, P[nodes], m.fixed_load[nodes], m.p[nodes], m.lo[nodes])
-                       for nodes in np.split(order, cuts) if nodes.size]
+        # the free gates level by level from the outputs back, with their rows of the pin
+        # loads and their constants: each step of a backward sizing pass
+        self.groups = [(nodes, P[nodes], m.fixed_load[nodes], m.p[nodes], m.lo[nodes],
+                        m.hi[nodes]) for nodes in np.split(order, cuts) if nodes.size]
 
     def __call__(self, x: np.ndarray, w: np.ndarray, bound: float, rounds: int = ROUNDS,
                  tol: float = TOL) -> tuple[np.ndarray, float, int]:
@@ -48,12 +50,13 @@ class Downsizer:
         t = self.timing
         n = t.model.n
         x = np.array(x, dtype=float)
-        delay = t.true_delay(t.delays(x)[0])
+        d = t.delays(x)[0]
+        a = t.arrivals(d)
+        delay = t.circuit_delay(a)
         energy = float(w @ x)
         kept = 0
         for _ in range(rounds):
-            d, _ = t.delays(x)
-            slack = t.required(d, bound) - t.arrivals(d)[:n]
+            slack = t.required(d, bound) - a[:n]
             longest = bound - slack
             with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
                 share = np.where(np.isfinite(slack) & (slack > 0) & (longest > 0),
@@ -61,16 +64,18 @@ class Downsizer:
             budget = np.where(np.isinf(slack), np.inf, d + (1 - SAFETY) * share)
             new = x.copy()
             with np.errstate(invalid="ignore", divide="ignore"):
-                for nodes, rows, fixed, p, lo in self.groups:
+                for nodes, rows, fixed, p, lo, _hi in self.groups:
                     # no load (0 / 0): nan, which fmax turns into the lower bound
                     size = np.fmax((rows @ new + fixed) / (budget[nodes] - p), lo)
                     new[nodes] = np.minimum(size, new[nodes])
-            new_delay = t.true_delay(t.delays(new)[0])
+            new_d = t.delays(new)[0]
+            new_a = t.arrivals(new_d)
+            new_delay = t.circuit_delay(new_a)
             new_energy = float(w @ new)
             if new_delay > bound or new_energy > energy:
                 break
             saved = energy - new_energy
-            x, delay, energy, kept = new, new_delay, new_energy, kept + 1
+            x, d, a, delay, energy, kept = new, new_d, new_a, new_delay, new_energy, kept + 1
             if saved <= tol * abs(energy):
                 break
         return x, delay, kept

@@ -199,7 +199,7 @@ class LargeSizer:
         self._fast_delay: float | None = None
         self._solved: deque[tuple[float, dict[float, _Stage]]] = deque(maxlen=KEEP)
         self._slope = SLOPE_START
-        self._downsizer: Downsizer | None = None
+        self._levels_back: Downsizer | None = None
         self.warm = True
         self.budget = BUDGET
 
@@ -256,27 +256,25 @@ class LargeSizer:
         """Log sizes to start the minimum-delay solve: from the outputs back, each free gate
         sized to drive its load at a fan-out of 4 (the rule of thumb, common practice),
         within its bounds; one vectorised step per logic level."""
-        m = self.model
         x = np.exp(self._y0)
-        P = self.timing.P
-        order = np.argsort(-m.level, kind="stable")
-        cuts = np.flatnonzero(np.diff(m.level[order])) + 1
-        for nodes in np.split(order, cuts):
-            nodes = nodes[self.free[nodes]]
-            if nodes.size:
-                load = P[nodes] @ x + m.fixed_load[nodes]
-                x[nodes] = np.clip(load / EFFORT_START, m.lo[nodes], m.hi[nodes])
+        for nodes, rows, fixed, _p, lo, hi in self._downsizer.groups:
+            x[nodes] = np.clip((rows @ x + fixed) / EFFORT_START, lo, hi)
         return np.log(x)
 
     def _moved(self, y: np.ndarray, step: np.ndarray) -> np.ndarray:
         """``y + step`` on the free gates, within their size bounds (fixed gates stay)."""
         return np.where(self.free, np.clip(y + step, self.log_lo, self.log_hi), y)
 
+    @property
+    def _downsizer(self) -> Downsizer:
+        """The backward sizing passes (levels of free gates), built on first use."""
+        if self._levels_back is None:
+            self._levels_back = Downsizer(self.timing, self.free)
+        return self._levels_back
+
     def _downsized(self, x: np.ndarray, w: np.ndarray, bound: float
                    ) -> tuple[np.ndarray, float, int]:
         """Slack recovery of sizes ``x`` that meet ``bound`` (``downsize.py``)."""
-        if self._downsizer is None:
-            self._downsizer = Downsizer(self.timing, self.free)
         return self._downsizer(x, w, bound)
 
     def _true(self, y: np.ndarray) -> float:

@@ -120,8 +120,12 @@ class SmoothTiming:
         return a
 
     def true_delay(self, d: np.ndarray) -> float:
+        return self.circuit_delay(self.arrivals(d))
+
+    def circuit_delay(self, a: np.ndarray) -> float:
+        """The latest output (tau), from the arrival times."""
         m = self.model
-        return float(np.max(self.arrivals(d)[m.out_node] + m.out_allow))
+        return float(np.max(a[m.out_node] + m.out_allow))
 
     def required(self, d: np.ndarray, bound: float) -> np.ndarray:
         """Latest arrival (tau) at each real node's output for every output to meet ``bound``
