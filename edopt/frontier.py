@@ -17,7 +17,7 @@ from scipy.optimize import brentq, minimize_scalar
 
 from .circuit import Circuit
 from .errors import EdoptError, InfeasibleTarget
-from .parallel import default_workers, solve_bounds
+from .parallel import Workers, default_workers
 from .sizing import CAUTION, Sizer, Sizing, parse_target
 from .solvers.large import SWEEP_BUDGET, LargeSizer
 from .technology import Technology
@@ -147,41 +147,46 @@ def frontier(
     leakage_fj, area, price_fj_per_ps, intensity, status, solver, seconds.
     """
     sizer = circuit if isinstance(circuit, Sizer) else Sizer(circuit, tech, objective, **options)
-    fast = sizer.fastest()
-    d_min = fast.min_delay_ps
-    targets = sweep_targets(d_min, points, span)
-    total = len(targets) + 1
-    results: dict[int, Sizing | EdoptError] = {0: fast}
-    count = 1
-    if progress:
-        progress(1, total, fast)
-    jobs, pending = [], {}
-    for k, t in enumerate(targets, start=1):
-        try:
-            req = sizer.request(float(t))
-        except EdoptError as exc:
-            results[k] = exc
-            continue
-        if isinstance(req, Sizing):
-            results[k] = req
-        else:
-            pending[k] = req
-            jobs.append((k, sizer.model.to_tau(req[0]), req[2]))
     large = sizer.engine if isinstance(sizer.engine, LargeSizer) else None
     budget = None
     if large is not None:
-        # the large engine warm-starts each bound from its neighbour, in order: from the relaxed
-        # end down (measured on 10^4 gates, 25 points: 22 % less time than upwards, and more
-        # points within the gap; the steep end starts from neighbours that are solved well).
-        # Two workers take alternate bounds, each warm-starting from its own previous one.
         # Each bound gets the sweep's budget: points within about 3 % of the minimum delay
         # end inaccurate with their certified gap rather than hold up the whole sweep.
-        jobs.reverse()
         budget, large.budget = large.budget, min(large.budget, SWEEP_BUDGET)
+    n_workers = default_workers(sizer.model, points - 1) if workers is None else workers
+    # the worker processes start up and compile while this one solves the minimum delay
+    pool = Workers(sizer.model, sizer.options, n_workers, large) \
+        if n_workers > 1 and points > 2 else None
     try:
-        n_workers = default_workers(sizer.model, len(jobs)) if workers is None else workers
-        if n_workers > 1 and len(jobs) > 1:
-            answers = solve_bounds(sizer.model, sizer.options, jobs, n_workers, large)
+        fast = sizer.fastest()
+        d_min = fast.min_delay_ps
+        targets = sweep_targets(d_min, points, span)
+        total = len(targets) + 1
+        results: dict[int, Sizing | EdoptError] = {0: fast}
+        count = 1
+        if progress:
+            progress(1, total, fast)
+        jobs, pending = [], {}
+        for k, t in enumerate(targets, start=1):
+            try:
+                req = sizer.request(float(t))
+            except EdoptError as exc:
+                results[k] = exc
+                continue
+            if isinstance(req, Sizing):
+                results[k] = req
+            else:
+                pending[k] = req
+                jobs.append((k, sizer.model.to_tau(req[0]), req[2]))
+        if large is not None:
+            # the large engine warm-starts each bound from its neighbour, in order: from the
+            # relaxed end down (measured on 10^4 gates, 25 points: 22 % less time than
+            # upwards, and more points within the gap; the steep end starts from neighbours
+            # that are solved well). Two workers take alternate bounds, each warm-starting
+            # from its own previous one.
+            jobs.reverse()
+        if pool is not None and len(jobs) > 1:
+            answers = pool.solve(jobs, large)
         else:
             answers = ((k, sizer.engine.cheapest(b, w)) for k, b, w in jobs)
         for k, sol in answers:
@@ -197,6 +202,8 @@ def frontier(
                 got = results[k]
                 progress(count, total, got if isinstance(got, Sizing) else None)
     finally:
+        if pool is not None:
+            pool.close()
         if large is not None and budget is not None:
             large.budget = budget
     rows = []

@@ -18,6 +18,7 @@ from edopt.circuit import chain
 from edopt.errors import EdoptError, InfeasibleTarget
 from edopt.generators import random_layered
 from edopt.sizing import LARGE_GATES, Sizer
+from edopt.solvers import kernels
 from edopt.solvers import large as large_module
 from edopt.solvers.downsize import Downsizer
 from edopt.solvers.large import BUDGET, LargeSizer, SmoothTiming
@@ -272,7 +273,7 @@ def test_triangular_solve_matches_level_passes() -> None:
     for circuit in (edopt.load_case("cases/mixed_chain.toml").circuit,
                     edopt.load_case("cases/decoder.toml").circuit, random_layered(800, seed=3)):
         m = Sizer(circuit, engine="reference").model
-        t = SmoothTiming(m)
+        t = SmoothTiming(m, compiled=False)
         mixed += t.N - m.n
         rng = np.random.default_rng(1)
         x = np.clip(np.exp(rng.uniform(0, 2, m.n)), m.lo, m.hi)
@@ -292,6 +293,72 @@ def test_triangular_solve_matches_level_passes() -> None:
             assert np.allclose(by_solve[2], by_levels[2], rtol=1e-9, atol=1e-12)
     assert mixed > 0
 
+
+
+@pytest.mark.skipif(not kernels.AVAILABLE, reason="numba is not installed")
+def test_compiled_loops_match_numpy_passes() -> None:
+    """The compiled loops (numba, ``kernels.py``) give the numbers of the numpy/scipy routes:
+    smoothed delay, node flows and output shares, exact arrivals and required times, the
+    engine's value, gradient and curvature start, and the L-BFGS two-loop product (both are
+    our code: the check is that the compiled and the vectorised routes agree), on networks
+    with a start time on a node that also has fan-in (the mixed chain's ``en`` input) and with
+    parallel arcs (the decoder)."""
+    from edopt.solvers.quasi_newton import _Pairs, _two_loop
+
+    rng = np.random.default_rng(4)
+    for circuit in (edopt.load_case("cases/mixed_chain.toml").circuit,
+                    edopt.load_case("cases/decoder.toml").circuit, random_layered(800, seed=3)):
+        m = Sizer(circuit, engine="reference").model
+        fast, slow = SmoothTiming(m, compiled=True), SmoothTiming(m, compiled=False)
+        assert fast.compiled and not slow.compiled
+        x = np.clip(np.exp(rng.uniform(0, 2, m.n)), m.lo, m.hi)
+        d, _ = slow.delays(x)
+        for beta in (0.3, 3.0, 30.0, 300.0):
+            a, b = fast.smooth(d, beta), slow.smooth(d, beta)
+            assert a[0] == pytest.approx(b[0], rel=1e-12)
+            assert np.allclose(a[1], b[1], rtol=1e-9, atol=1e-12)
+            assert np.allclose(a[2], b[2], rtol=1e-9, atol=1e-12)
+        bound = 1.1 * slow.true_delay(d)
+        assert np.array_equal(fast.arrivals(d), slow.arrivals(d))
+        assert np.array_equal(fast.required(d, bound), slow.required(d, bound))
+        if m.cap_max.size:          # input-capacitance limits: not for the large engine
+            continue
+        # the engine's objective, gradient and curvature start by both routes
+        grads = []
+        for timing in (fast, slow):
+            engine = LargeSizer(m)
+            engine.timing = timing
+            seen = []
+            original = large_module.minimise_box
+
+            def record(fun, x0, lo, hi, iters, ftol, memory, seen=seen, original=original):
+                seen.append(fun(x0 + 0.01))
+                return original(fun, x0, lo, hi, 1, ftol, memory)
+
+            large_module.minimise_box = record
+            try:
+                engine._minimise(np.log(x), m.e_lin, 2.0, 10.0, 1e-9, large_module._Count())
+            finally:
+                large_module.minimise_box = original
+            grads.append(seen[0])
+        (fa, ga, ha), (fb, gb, hb) = grads
+        assert fa == pytest.approx(fb, rel=1e-12)
+        assert np.allclose(ga, gb, rtol=1e-9, atol=1e-12 * np.abs(gb).max())
+        assert np.allclose(ha, hb, rtol=1e-9)
+    # the two-loop recursion: compiled against numpy, from a diagonal and from the identity
+    n = 500
+    pairs = _Pairs(4, n)
+    for _ in range(6):                       # more pairs than the memory: the ring wraps
+        sv, yv = rng.normal(size=n), rng.normal(size=n)
+        yv += 3 * sv
+        pairs.append(sv, yv, 1.0 / float(sv @ yv))
+    g, h = rng.normal(size=n), rng.uniform(0.5, 2.0, n)
+    order = (pairs.head - pairs.count + np.arange(pairs.count)) % 4
+    for diag in (h, None):
+        own = pairs.apply(g, diag)
+        ref = _two_loop(g, pairs.S, pairs.Y, pairs.rho, order,
+                        np.ones(n) if diag is None else diag)
+        assert np.allclose(own, ref, rtol=1e-10, atol=1e-12)
 
 
 def test_certified_bound_against_scipy() -> None:

@@ -57,6 +57,7 @@ import numpy as np
 
 from ..errors import EdoptError
 from ..model import Model
+from . import kernels
 from .conic import INACCURATE, INFEASIBLE, OPTIMAL, Options, Solution
 from .downsize import Downsizer
 from .quasi_newton import minimise_box
@@ -190,6 +191,7 @@ class LargeSizer:
         self.gap = float(gap)
         self.timing = SmoothTiming(model)
         self.free = ~model.fixed
+        self._free_idx = np.flatnonzero(self.free)
         self.log_lo, self.log_hi = np.log(model.lo), np.log(model.hi)
         self.depth = max(1, int(model.level.max()) if model.n else 1)
         self._y0 = np.log(np.clip(np.ones(model.n), model.lo, model.hi))
@@ -233,6 +235,14 @@ class LargeSizer:
             ftol *= min(1.0, max(float(w @ x0), 1e-300) / max(abs(f0), 1e-300))
         scale = 1.0 / max(abs(f0), 1e-300)
 
+        if t.compiled:
+            value_grad = self._compiled_value_grad(y, w, lam, beta, scale, count)
+            res = minimise_box(value_grad, y[free], self.log_lo[free], self.log_hi[free],
+                               STEP_ITERS, ftol, MEMORY)
+            count.iterations += int(res.nit)
+            y[free] = res.x
+            return y
+
         def value_grad(z: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
             count.evaluations += 1
             y[free] = z
@@ -251,6 +261,28 @@ class LargeSizer:
         count.iterations += int(res.nit)
         y[free] = res.x
         return y
+
+    def _compiled_value_grad(self, y: np.ndarray, w: np.ndarray, lam: float, beta: float,
+                             scale: float, count: _Count
+                             ) -> Callable[[np.ndarray], tuple[float, np.ndarray, np.ndarray]]:
+        """The ``value_grad`` of ``_minimise`` by the compiled loops (``kernels.py``): the
+        same quantities, each array written in place."""
+        t, n = self.timing, self.model.n
+        free = self._free_idx
+        P, PT, m = t.P, t.PT, self.model
+        x, d, load, work = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+
+        def value_grad(z: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
+            count.evaluations += 1
+            kernels.sizes_delays(z, free, y, x, P.indptr, P.indices, P.data, m.fixed_load,
+                                 m.p, d, load)
+            delay, flow, _ = t.smooth(d, beta)
+            grad, h = np.empty(free.size), np.empty(free.size)
+            energy = kernels.gradient(x, w, lam, flow, load, PT.indptr, PT.indices, PT.data,
+                                      free, CURVE_FLOOR, scale, work, grad, h)
+            return scale * (energy + lam * delay), grad, h
+
+        return value_grad
 
     def _effort_start(self) -> np.ndarray:
         """Log sizes to start the minimum-delay solve: from the outputs back, each free gate

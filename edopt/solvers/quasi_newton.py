@@ -13,11 +13,12 @@ the latest correction pair) instead of a multiple of the identity.
 
 from __future__ import annotations
 
-from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
+
+from . import kernels
 
 ARMIJO = 1e-4        # sufficient decrease along the projected path
 BACKTRACKS = 40      # halvings of the step before the search gives up
@@ -47,7 +48,7 @@ def minimise_box(fun: Callable[[np.ndarray], tuple], x0: np.ndarray,
     x = np.clip(x0, lo, hi)
     f, g, h = _evaluate(fun, x)
     nfev = 1
-    pairs: deque[tuple[np.ndarray, np.ndarray, float]] = deque(maxlen=memory)
+    pairs = _Pairs(memory, x.size)
     stalled = False
     nit = 0
     while nit < maxiter:
@@ -56,7 +57,7 @@ def minimise_box(fun: Callable[[np.ndarray], tuple], x0: np.ndarray,
         gf = np.where(held, 0.0, g)
         if not np.any(gf):
             break
-        p = -_two_loop(gf, pairs, h)
+        p = -pairs.apply(gf, h)
         p[held] = 0.0
         slope = float(g @ p)
         if slope >= 0:                     # not a descent direction: restart from the gradient
@@ -77,7 +78,7 @@ def minimise_box(fun: Callable[[np.ndarray], tuple], x0: np.ndarray,
         s, yv = xn - x, gn - g
         sy = float(s @ yv)
         if sy > CURVATURE * float(np.linalg.norm(s) * np.linalg.norm(yv)):
-            pairs.append((s, yv, 1.0 / sy))
+            pairs.append(s, yv, 1.0 / sy)
         done = (f - fn) <= ftol * max(abs(f), abs(fn), 1.0)
         x, f, g, h = xn, fn, gn, hn
         if done:
@@ -91,23 +92,53 @@ def _evaluate(fun: Callable[[np.ndarray], tuple], x: np.ndarray
     return out[0], out[1], (out[2] if len(out) > 2 else None)
 
 
-def _two_loop(g: np.ndarray, pairs: deque, h: np.ndarray | None = None) -> np.ndarray:
-    """The L-BFGS product H g, from a scaled identity or the scaled inverse of diagonal ``h``."""
+class _Pairs:
+    """The newest ``memory`` correction pairs ``(s, y, 1 / s.y)``, as rows of two arrays."""
+
+    def __init__(self, memory: int, n: int) -> None:
+        self.S, self.Y = np.empty((memory, n)), np.empty((memory, n))
+        self.rho = np.empty(memory)
+        self.count = self.head = 0
+        self._q = np.empty(n)
+
+    def __len__(self) -> int:
+        return self.count
+
+    def clear(self) -> None:
+        self.count = 0
+
+    def append(self, s: np.ndarray, y: np.ndarray, rho: float) -> None:
+        i = self.head
+        self.S[i], self.Y[i], self.rho[i] = s, y, rho
+        self.head = (i + 1) % self.rho.size
+        self.count = min(self.count + 1, self.rho.size)
+
+    def apply(self, g: np.ndarray, h: np.ndarray | None = None) -> np.ndarray:
+        """The L-BFGS product ``H g``, from a scaled identity or the scaled inverse of the
+        diagonal ``h`` (a new array)."""
+        size = self.rho.size
+        order = (self.head - self.count + np.arange(self.count)) % size
+        h = np.ones(g.size) if h is None else h
+        if kernels.AVAILABLE:
+            kernels.two_loop(g, self.S, self.Y, self.rho, order, h, self._q)
+            return self._q.copy()
+        return _two_loop(g, self.S, self.Y, self.rho, order, h)
+
+
+def _two_loop(g: np.ndarray, S: np.ndarray, Y: np.ndarray, rho: np.ndarray,
+              order: np.ndarray, h: np.ndarray) -> np.ndarray:
+    """``kernels.two_loop`` in numpy (without numba)."""
     q = g.copy()
     alphas = []
-    for s, y, rho in reversed(pairs):
-        a = rho * float(s @ q)
+    for i in order[::-1]:
+        a = rho[i] * float(S[i] @ q)
         alphas.append(a)
-        q -= a * y
-    if h is not None:
-        q /= h
-        if pairs:
-            s, y, rho = pairs[-1]
-            q *= 1.0 / (rho * float(y @ (y / h)))
-    elif pairs:
-        s, y, rho = pairs[-1]
-        q *= 1.0 / (rho * float(y @ y))
-    for (s, y, rho), a in zip(pairs, reversed(alphas)):
-        b = rho * float(y @ q)
-        q += (a - b) * s
+        q -= a * Y[i]
+    q /= h
+    if order.size:
+        i = order[-1]
+        q *= 1.0 / (rho[i] * float(Y[i] @ (Y[i] / h)))
+    for i, a in zip(order, reversed(alphas)):
+        b = rho[i] * float(Y[i] @ q)
+        q += (a - b) * S[i]
     return q

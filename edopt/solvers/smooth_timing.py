@@ -26,6 +26,7 @@ import scipy.sparse as sp
 from scipy.sparse.linalg import spsolve_triangular
 
 from ..model import Model
+from . import kernels
 
 LOG_RANGE = 300.0   # |log z| beyond this at any node: the reference is too far, pass by levels
 
@@ -39,11 +40,13 @@ class SmoothTiming:
     """Arrival times of a Model with exact or log-sum-exp maxima, and their adjoints.
 
     Start times of nodes that also have fan-in become *pseudo nodes* (indices n..N) of constant
-    arrival, so that every maximum is over arcs. ``linear`` chooses the triangular solve when
-    the reference allows it (module doc); ``solves`` / ``passes`` count the evaluations each way.
+    arrival, so that every maximum is over arcs. ``compiled`` (default: when numba is installed)
+    runs every pass as one compiled loop over the nodes (``kernels.py``); otherwise
+    ``linear`` chooses the triangular solve when the reference allows it (module doc);
+    ``solves`` / ``passes`` count the evaluations of those two numpy/scipy routes.
     """
 
-    def __init__(self, model: Model) -> None:
+    def __init__(self, model: Model, compiled: bool | None = None) -> None:
         m = self.model = model
         n = m.n
         src, dst = m.edge_src, m.edge_dst
@@ -75,6 +78,15 @@ class SmoothTiming:
         self.solves = self.passes = 0
         self._ref: np.ndarray | None = None     # arrival times (tau) of the last evaluation
         self._triangle()
+        self.compiled = kernels.AVAILABLE if compiled is None else bool(compiled)
+        if self.compiled and not (kernels.AVAILABLE and self.linear):
+            self.compiled = False
+        # fan-in of every real node, by sink in node order (the compiled passes)
+        by_sink = np.argsort(self.dst, kind="stable")
+        self._in_src = self.src[by_sink].astype(np.int64)
+        self._in_ptr = np.concatenate(
+            [[0], np.cumsum(np.bincount(self.dst, minlength=n))]).astype(np.int64)
+        self._share = np.empty(self._in_src.size)      # each arc's share of its sink's sum
 
     def _triangle(self) -> None:
         """Structure of ``I - M`` over the real nodes in the model's own order, which is
@@ -115,6 +127,9 @@ class SmoothTiming:
         a = np.empty(self.N)
         a[:self.model.n] = self.start + d
         a[self.model.n:] = self.pseudo_t0
+        if self.compiled:
+            kernels.max_forward(a, d, self._in_ptr, self._in_src)
+            return a
         for s, e, u, first, *_ in self.levels:
             a[u] = np.maximum.reduceat(a[self.src[s:e]], first) + d[u]
         return a
@@ -133,6 +148,9 @@ class SmoothTiming:
         m = self.model
         q = np.full(self.N, np.inf)
         np.minimum.at(q, m.out_node, bound - m.out_allow)
+        if self.compiled:
+            kernels.min_backward(q, d, self._in_ptr, self._in_src)
+            return q[:m.n]
         for s, e, _u, _first, perm, heads_node, heads in reversed(self.levels):
             dst = self.dst[s:e]
             later = np.minimum.reduceat((q[dst] - d[dst])[perm], heads)
@@ -143,6 +161,8 @@ class SmoothTiming:
         """Smoothed circuit delay, its adjoint per node (``N`` entries: the node flows of a unit
         flow to the outputs) and the share of that flow at each output."""
         m = self.model
+        if self.compiled:
+            return self._smooth_compiled(d, beta)
         found = self._by_solve(d, beta) if self.linear and self._ref is not None else None
         if found is None:
             self.passes += 1
@@ -160,6 +180,26 @@ class SmoothTiming:
         np.add.at(seed, m.out_node, out_share)
         flow = self._backward(seed, share) if found is None else self._adjoint(seed, z, r)
         return top + math.log(zo.sum()) / beta, flow, out_share
+
+    def _smooth_compiled(self, d: np.ndarray, beta: float
+                         ) -> tuple[float, np.ndarray, np.ndarray]:
+        """``smooth`` by the compiled passes: forward in scaled arrivals, then the flows back."""
+        m = self.model
+        b = np.empty(self.N)
+        bd = beta * d
+        b[:m.n] = beta * self.start + bd
+        b[m.n:] = beta * self.pseudo_t0
+        share = self._share
+        kernels.lse_forward(b, bd, self._in_ptr, self._in_src, share)
+        v = b[m.out_node] + beta * m.out_allow
+        top = float(v.max())
+        zo = np.exp(v - top)
+        total = float(zo.sum())
+        out_share = zo / total
+        flow = np.zeros(self.N)
+        np.add.at(flow, m.out_node, out_share)
+        kernels.lse_backward(flow, self._in_ptr, self._in_src, share)
+        return (top + math.log(total)) / beta, flow, out_share
 
     # ------------------------------------------------------------- level by level
     def _forward(self, d: np.ndarray, beta: float) -> tuple[np.ndarray, np.ndarray]:
