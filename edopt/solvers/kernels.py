@@ -10,8 +10,9 @@ calls per level) and the sparse triangular solves, whose call overheads dominate
 from the free log sizes, delays and loads; then the gradient and the diagonal curvature from
 the node flows): one loop each instead of some thirty numpy calls.
 
-**The L-BFGS two-loop recursion** (``quasi_newton.py``) over correction pairs stored as rows
-of two arrays: one compiled loop per pair instead of a few numpy calls.
+**The projected L-BFGS step** (``quasi_newton.py``): the direction (variables held at their
+bounds, the two-loop recursion over correction pairs stored as rows of two arrays), the trial
+point and the new pair, each one loop instead of a few numpy calls per variable vector.
 
 Without numba, ``AVAILABLE`` is False and the callers keep their numpy/scipy code (the same
 numbers to rounding; the tests compare the two).
@@ -190,6 +191,56 @@ def _two_loop(g: np.ndarray, S: np.ndarray, Y: np.ndarray, rho: np.ndarray,
             q[j] += c * S[i, j]
 
 
+def _direction(x: np.ndarray, g: np.ndarray, lo: np.ndarray, hi: np.ndarray,
+               S: np.ndarray, Y: np.ndarray, rho: np.ndarray, order: np.ndarray,
+               h: np.ndarray, gf: np.ndarray, p: np.ndarray) -> tuple[float, bool]:
+    """The projected L-BFGS direction ``p = -H gf`` (``gf``: the gradient without the
+    variables held at a bound it pushes against, which stay put) and the slope ``g @ p``;
+    False when no variable is free to move."""
+    n = x.size
+    moving = False
+    for j in range(n):
+        held = (x[j] <= lo[j] and g[j] > 0.0) or (x[j] >= hi[j] and g[j] < 0.0)
+        gf[j] = 0.0 if held else g[j]
+        moving = moving or gf[j] != 0.0
+    if not moving:
+        return 0.0, False
+    two_loop(gf, S, Y, rho, order, h, p)
+    slope = 0.0
+    for j in range(n):
+        if gf[j] == 0.0 and g[j] != 0.0:      # held
+            p[j] = 0.0
+        else:
+            p[j] = -p[j]
+        slope += g[j] * p[j]
+    return slope, True
+
+
+def _trial(x: np.ndarray, p: np.ndarray, step: float, lo: np.ndarray, hi: np.ndarray,
+           g: np.ndarray, xn: np.ndarray) -> float:
+    """``xn = clip(x + step p, lo, hi)``; returns ``g @ (xn - x)``."""
+    change = 0.0
+    for j in range(x.size):
+        v = min(max(x[j] + step * p[j], lo[j]), hi[j])
+        xn[j] = v
+        change += g[j] * (v - x[j])
+    return change
+
+
+def _pair(xn: np.ndarray, x: np.ndarray, gn: np.ndarray, g: np.ndarray, S: np.ndarray,
+          Y: np.ndarray, i: int) -> tuple[float, float, float]:
+    """Row ``i`` of ``S`` and ``Y`` = ``xn - x`` and ``gn - g``; returns ``s.y``, ``|s|``,
+    ``|y|``."""
+    sy = ss = yy = 0.0
+    for j in range(x.size):
+        a, b = xn[j] - x[j], gn[j] - g[j]
+        S[i, j], Y[i, j] = a, b
+        sy += a * b
+        ss += a * a
+        yy += b * b
+    return sy, math.sqrt(ss), math.sqrt(yy)
+
+
 if numba is not None:
     _jit = numba.njit(cache=True, nogil=True, error_model="numpy")
     lse_forward = _jit(_lse_forward)
@@ -200,10 +251,13 @@ if numba is not None:
     sizes_delays = _jit(_sizes_delays)
     gradient = _jit(_gradient)
     two_loop = numba.njit(cache=True, nogil=True, fastmath=True)(_two_loop)
+    direction = _jit(_direction)
+    trial = _jit(_trial)
+    pair = _jit(_pair)
 else:     # pragma: no cover - the plain functions are far too slow to be used in their place
     lse_forward = lse_backward = max_forward = min_backward = None
-    sizes_delays = gradient = two_loop = None
+    sizes_delays = gradient = two_loop = direction = trial = pair = None
 
 
-__all__ = ["AVAILABLE", "gradient", "lse_backward", "lse_forward", "max_forward",
-           "min_backward", "sizes_delays", "two_loop"]
+__all__ = ["AVAILABLE", "direction", "gradient", "lse_backward", "lse_forward",
+           "max_forward", "min_backward", "pair", "sizes_delays", "trial", "two_loop"]

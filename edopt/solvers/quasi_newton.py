@@ -53,37 +53,41 @@ def minimise_box(fun: Callable[[np.ndarray], tuple], x0: np.ndarray,
     nit = 0
     while nit < maxiter:
         nit += 1
-        held = ((x <= lo) & (g > 0)) | ((x >= hi) & (g < 0))
-        gf = np.where(held, 0.0, g)
-        if not np.any(gf):
+        p, slope, moving = pairs.direction(x, g, lo, hi, h)
+        if not moving:
             break
-        p = -pairs.apply(gf, h)
-        p[held] = 0.0
-        slope = float(g @ p)
         if slope >= 0:                     # not a descent direction: restart from the gradient
             pairs.clear()
-            p = -gf
+            held = ((x <= lo) & (g > 0)) | ((x >= hi) & (g < 0))
+            p = -np.where(held, 0.0, g)
             slope = float(g @ p)
         step = 1.0 if pairs else min(1.0, 1.0 / max(float(np.max(np.abs(p))), 1e-300))
         for _ in range(BACKTRACKS):
-            xn = np.clip(x + step * p, lo, hi)
+            xn, change = _trial(x, p, step, lo, hi, g)
             fn, gn, hn = _evaluate(fun, xn)
             nfev += 1
-            if fn <= f + ARMIJO * float(g @ (xn - x)):
+            if fn <= f + ARMIJO * change:
                 break
             step *= 0.5
         else:
             stalled = True
             break
-        s, yv = xn - x, gn - g
-        sy = float(s @ yv)
-        if sy > CURVATURE * float(np.linalg.norm(s) * np.linalg.norm(yv)):
-            pairs.append(s, yv, 1.0 / sy)
+        pairs.offer(xn, x, gn, g)
         done = (f - fn) <= ftol * max(abs(f), abs(fn), 1.0)
         x, f, g, h = xn, fn, gn, hn
         if done:
             break
     return Result(x, f, nit, nfev, stalled)
+
+
+def _trial(x: np.ndarray, p: np.ndarray, step: float, lo: np.ndarray, hi: np.ndarray,
+           g: np.ndarray) -> tuple[np.ndarray, float]:
+    """The trial point ``clip(x + step p)`` and the first-order change ``g @ (xn - x)``."""
+    if kernels.AVAILABLE:
+        xn = np.empty_like(x)
+        return xn, float(kernels.trial(x, p, step, lo, hi, g, xn))
+    xn = np.clip(x + step * p, lo, hi)
+    return xn, float(g @ (xn - x))
 
 
 def _evaluate(fun: Callable[[np.ndarray], tuple], x: np.ndarray
@@ -93,11 +97,13 @@ def _evaluate(fun: Callable[[np.ndarray], tuple], x: np.ndarray
 
 
 class _Pairs:
-    """The newest ``memory`` correction pairs ``(s, y, 1 / s.y)``, as rows of two arrays."""
+    """The newest ``memory`` correction pairs ``(s, y, 1 / s.y)``, as rows of two arrays in a
+    ring of ``memory + 1`` rows: the row at ``head`` is always free for the next candidate."""
 
     def __init__(self, memory: int, n: int) -> None:
-        self.S, self.Y = np.empty((memory, n)), np.empty((memory, n))
-        self.rho = np.empty(memory)
+        self.memory = memory
+        self.S, self.Y = np.empty((memory + 1, n)), np.empty((memory + 1, n))
+        self.rho = np.empty(memory + 1)
         self.count = self.head = 0
         self._q = np.empty(n)
 
@@ -111,18 +117,52 @@ class _Pairs:
         i = self.head
         self.S[i], self.Y[i], self.rho[i] = s, y, rho
         self.head = (i + 1) % self.rho.size
-        self.count = min(self.count + 1, self.rho.size)
+        self.count = min(self.count + 1, self.memory)
+
+    def _order(self) -> np.ndarray:
+        """Row of each stored pair, oldest first."""
+        return (self.head - self.count + np.arange(self.count)) % self.rho.size
 
     def apply(self, g: np.ndarray, h: np.ndarray | None = None) -> np.ndarray:
         """The L-BFGS product ``H g``, from a scaled identity or the scaled inverse of the
         diagonal ``h`` (a new array)."""
-        size = self.rho.size
-        order = (self.head - self.count + np.arange(self.count)) % size
         h = np.ones(g.size) if h is None else h
         if kernels.AVAILABLE:
-            kernels.two_loop(g, self.S, self.Y, self.rho, order, h, self._q)
+            kernels.two_loop(g, self.S, self.Y, self.rho, self._order(), h, self._q)
             return self._q.copy()
-        return _two_loop(g, self.S, self.Y, self.rho, order, h)
+        return _two_loop(g, self.S, self.Y, self.rho, self._order(), h)
+
+    def direction(self, x: np.ndarray, g: np.ndarray, lo: np.ndarray, hi: np.ndarray,
+                  h: np.ndarray | None) -> tuple[np.ndarray, float, bool]:
+        """The projected direction ``-H g`` (variables at a bound that ``g`` pushes against
+        held), its slope ``g @ p``, and whether any variable is free to move."""
+        h = np.ones(g.size) if h is None else h
+        if kernels.AVAILABLE:
+            p = np.empty_like(g)
+            slope, moving = kernels.direction(x, g, lo, hi, self.S, self.Y, self.rho,
+                                              self._order(), h, np.empty_like(g), p)
+            return p, float(slope), bool(moving)
+        held = ((x <= lo) & (g > 0)) | ((x >= hi) & (g < 0))
+        gf = np.where(held, 0.0, g)
+        if not np.any(gf):
+            return gf, 0.0, False
+        p = -_two_loop(gf, self.S, self.Y, self.rho, self._order(), h)
+        p[held] = 0.0
+        return p, float(g @ p), True
+
+    def offer(self, xn: np.ndarray, x: np.ndarray, gn: np.ndarray, g: np.ndarray) -> None:
+        """Keep the pair ``(xn - x, gn - g)`` if its curvature is positive enough."""
+        i = self.head
+        if kernels.AVAILABLE:
+            sy, ns, ny = kernels.pair(xn, x, gn, g, self.S, self.Y, i)
+        else:
+            self.S[i], self.Y[i] = xn - x, gn - g
+            sy = float(self.S[i] @ self.Y[i])
+            ns, ny = float(np.linalg.norm(self.S[i])), float(np.linalg.norm(self.Y[i]))
+        if sy > CURVATURE * ns * ny:
+            self.rho[i] = 1.0 / sy
+            self.head = (i + 1) % self.rho.size
+            self.count = min(self.count + 1, self.memory)
 
 
 def _two_loop(g: np.ndarray, S: np.ndarray, Y: np.ndarray, rho: np.ndarray,
