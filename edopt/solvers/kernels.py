@@ -250,7 +250,7 @@ if numba is not None:
     # reassociated (vectorised) sums: the dot products are otherwise bound by the add latency
     sizes_delays = _jit(_sizes_delays)
     gradient = _jit(_gradient)
-    two_loop = numba.njit(cache=True, nogil=True, fastmath=True)(_two_loop)
+    two_loop = numba.njit(cache=True, nogil=True, fastmath={"reassoc", "contract"})(_two_loop)
     direction = _jit(_direction)
     trial = _jit(_trial)
     pair = _jit(_pair)

@@ -1,7 +1,8 @@
 """Large-scale engine: smoothed timing, continuation in sharpness and a certified optimality gap.
 
 For networks far beyond what the interior-point reference handles (10^5-10^6 gates), every
-iteration is a few vectorised passes over the timing graph (``smooth_timing.py``):
+iteration is a few passes over the timing graph (``smooth_timing.py``; compiled loops in
+``kernels.py`` when numba is installed, vectorised numpy/scipy otherwise):
 
 * **Smoothed timing.** The maximum at each node's inputs is replaced by a log-sum-exp of
   sharpness ``beta`` (1/tau). The smoothed delay is convex in the log sizes and never below the

@@ -1,8 +1,10 @@
 """Arrival times of a Model with exact or log-sum-exp maxima, and their adjoints (large engine).
 
 The smoothed arrival ``b_u = beta d_u + log sum_i exp(b_i)`` (scaled by the sharpness ``beta``)
-is computed in one of two ways, with the same result to rounding:
+is computed in one of three ways, with the same result to rounding:
 
+* **Compiled** (when numba is installed, the default): one loop over the nodes in topological
+  order each way (``kernels.py``). The two routes below are the fallback without numba.
 * **Level by level**: one ``logaddexp.reduceat`` per level forward, one ``add.reduceat`` per
   level backward. Exact at any scale, but a few numpy calls per level: on deep graphs (hundreds
   of levels of a few hundred gates) their overhead is most of the time.
