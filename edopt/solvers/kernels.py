@@ -79,6 +79,35 @@ def _lse_backward(flow: np.ndarray, in_ptr: np.ndarray, in_src: np.ndarray,
             flow[in_src[k]] += f * share[k]
 
 
+def _smooth(d: np.ndarray, beta: float, start: np.ndarray, pseudo_t0: np.ndarray,
+            in_ptr: np.ndarray, in_src: np.ndarray, share: np.ndarray, out_node: np.ndarray,
+            out_allow: np.ndarray, b: np.ndarray, flow: np.ndarray, out_share: np.ndarray
+            ) -> float:
+    """The smoothed circuit delay: scaled arrivals ``b`` (start values, then
+    ``_lse_forward``), the log-sum-exp over the outputs and each output's share of it, and the
+    node flows back from the outputs (``flow``, all zeros on entry; ``_lse_backward``)."""
+    n = d.size
+    bd = np.empty(n)
+    for i in range(n):
+        bd[i] = beta * d[i]
+        b[i] = beta * start[i] + bd[i]
+    for k in range(pseudo_t0.size):
+        b[n + k] = beta * pseudo_t0[k]
+    _lse_forward_jit(b, bd, in_ptr, in_src, share)
+    top = -math.inf
+    for k in range(out_node.size):
+        top = max(top, b[out_node[k]] + beta * out_allow[k])
+    total = 0.0
+    for k in range(out_node.size):
+        out_share[k] = math.exp(b[out_node[k]] + beta * out_allow[k] - top)
+        total += out_share[k]
+    for k in range(out_node.size):
+        out_share[k] /= total
+        flow[out_node[k]] += out_share[k]
+    _lse_backward_jit(flow, in_ptr, in_src, share)
+    return (top + math.log(total)) / beta
+
+
 def _max_forward(a: np.ndarray, d: np.ndarray, in_ptr: np.ndarray, in_src: np.ndarray
                  ) -> None:
     """Exact arrivals in place: ``a[u] = d[u] + max_i a[i]`` over the fan-in."""
@@ -243,8 +272,9 @@ def _pair(xn: np.ndarray, x: np.ndarray, gn: np.ndarray, g: np.ndarray, S: np.nd
 
 if numba is not None:
     _jit = numba.njit(cache=True, nogil=True, error_model="numpy")
-    lse_forward = _jit(_lse_forward)
-    lse_backward = _jit(_lse_backward)
+    lse_forward = _lse_forward_jit = _jit(_lse_forward)
+    lse_backward = _lse_backward_jit = _jit(_lse_backward)
+    smooth = _jit(_smooth)
     max_forward = _jit(_max_forward)
     min_backward = _jit(_min_backward)
     # reassociated (vectorised) sums: the dot products are otherwise bound by the add latency
@@ -255,9 +285,10 @@ if numba is not None:
     trial = _jit(_trial)
     pair = _jit(_pair)
 else:     # pragma: no cover - the plain functions are far too slow to be used in their place
-    lse_forward = lse_backward = max_forward = min_backward = None
+    lse_forward = lse_backward = smooth = max_forward = min_backward = None
     sizes_delays = gradient = two_loop = direction = trial = pair = None
 
 
 __all__ = ["AVAILABLE", "direction", "gradient", "lse_backward", "lse_forward",
-           "max_forward", "min_backward", "pair", "sizes_delays", "trial", "two_loop"]
+           "max_forward", "min_backward", "pair", "sizes_delays", "smooth", "trial",
+           "two_loop"]

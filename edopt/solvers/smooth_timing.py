@@ -187,21 +187,11 @@ class SmoothTiming:
                          ) -> tuple[float, np.ndarray, np.ndarray]:
         """``smooth`` by the compiled passes: forward in scaled arrivals, then the flows back."""
         m = self.model
-        b = np.empty(self.N)
-        bd = beta * d
-        b[:m.n] = beta * self.start + bd
-        b[m.n:] = beta * self.pseudo_t0
-        share = self._share
-        kernels.lse_forward(b, bd, self._in_ptr, self._in_src, share)
-        v = b[m.out_node] + beta * m.out_allow
-        top = float(v.max())
-        zo = np.exp(v - top)
-        total = float(zo.sum())
-        out_share = zo / total
-        flow = np.zeros(self.N)
-        np.add.at(flow, m.out_node, out_share)
-        kernels.lse_backward(flow, self._in_ptr, self._in_src, share)
-        return (top + math.log(total)) / beta, flow, out_share
+        flow, out_share = np.zeros(self.N), np.empty(m.out_node.size)
+        value = kernels.smooth(d, float(beta), self.start, self.pseudo_t0, self._in_ptr,
+                               self._in_src, self._share, m.out_node, m.out_allow,
+                               np.empty(self.N), flow, out_share)
+        return float(value), flow, out_share
 
     # ------------------------------------------------------------- level by level
     def _forward(self, d: np.ndarray, beta: float) -> tuple[np.ndarray, np.ndarray]:
