@@ -42,6 +42,7 @@ def _start(model: Model, options: Options, large: dict | None = None) -> None:
     else:
         engine = LargeSizer(model, options, gap=large["gap"])
         engine.budget = large["budget"]
+        engine.warm_up()
         _ENGINE = engine
 
 
