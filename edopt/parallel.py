@@ -166,12 +166,3 @@ class Workers:
     def __exit__(self, *exc: object) -> None:
         self.close()
 
-
-def solve_bounds(model: Model, options: Options, jobs: Sequence[tuple[int, float, np.ndarray]],
-                 workers: int, large: LargeSizer | None = None
-                 ) -> Iterator[tuple[int, Solution | BaseException]]:
-    """Yield ``(index, Solution or the exception)`` as each job ``(index, bound, weights)`` ends,
-    in ``workers`` new processes (``Workers``). ``large``: solve with copies of this large
-    engine (its gap, budget and minimum-delay solve) instead of the reference."""
-    with Workers(model, options, workers, large) as pool:
-        yield from pool.solve(jobs, large)

@@ -348,16 +348,16 @@ def test_compiled_loops_match_numpy_passes() -> None:
     # the two-loop recursion: compiled against numpy, from a diagonal and from the identity
     n = 500
     pairs = _Pairs(4, n)
+    zero = np.zeros(n)
     for _ in range(6):                       # more pairs than the memory: the ring wraps
         sv, yv = rng.normal(size=n), rng.normal(size=n)
-        yv += 3 * sv
-        pairs.append(sv, yv, 1.0 / float(sv @ yv))
+        pairs.offer(sv, zero, yv + 3 * sv, zero)
     g, h = rng.normal(size=n), rng.uniform(0.5, 2.0, n)
-    order = pairs._order()
-    for diag in (h, None):
-        own = pairs.apply(g, diag)
-        ref = _two_loop(g, pairs.S, pairs.Y, pairs.rho, order,
-                        np.ones(n) if diag is None else diag)
+    order = pairs.order()
+    for diag in (h, np.ones(n)):
+        own = np.empty(n)
+        kernels.two_loop(g, pairs.S, pairs.Y, pairs.rho, order, diag, own)
+        ref = _two_loop(g, pairs.S, pairs.Y, pairs.rho, order, diag)
         assert np.allclose(own, ref, rtol=1e-10, atol=1e-12)
 
 

@@ -93,7 +93,7 @@ def _smooth(d: np.ndarray, beta: float, start: np.ndarray, pseudo_t0: np.ndarray
         b[i] = beta * start[i] + bd[i]
     for k in range(pseudo_t0.size):
         b[n + k] = beta * pseudo_t0[k]
-    _lse_forward_jit(b, bd, in_ptr, in_src, share)
+    lse_forward(b, bd, in_ptr, in_src, share)
     top = -math.inf
     for k in range(out_node.size):
         top = max(top, b[out_node[k]] + beta * out_allow[k])
@@ -104,7 +104,7 @@ def _smooth(d: np.ndarray, beta: float, start: np.ndarray, pseudo_t0: np.ndarray
     for k in range(out_node.size):
         out_share[k] /= total
         flow[out_node[k]] += out_share[k]
-    _lse_backward_jit(flow, in_ptr, in_src, share)
+    lse_backward(flow, in_ptr, in_src, share)
     return (top + math.log(total)) / beta
 
 
@@ -272,8 +272,8 @@ def _pair(xn: np.ndarray, x: np.ndarray, gn: np.ndarray, g: np.ndarray, S: np.nd
 
 if numba is not None:
     _jit = numba.njit(cache=True, nogil=True, error_model="numpy")
-    lse_forward = _lse_forward_jit = _jit(_lse_forward)
-    lse_backward = _lse_backward_jit = _jit(_lse_backward)
+    lse_forward = _jit(_lse_forward)
+    lse_backward = _jit(_lse_backward)
     smooth = _jit(_smooth)
     max_forward = _jit(_max_forward)
     min_backward = _jit(_min_backward)

@@ -244,7 +244,7 @@ class LargeSizer:
         """Minimise ``w @ x + lam * D_smooth`` over the free log sizes from ``y``. With
         ``energy_scale`` the stopping rule compares each step's gain with the energy, not with
         the whole objective (near the minimum delay the delay term is most of it)."""
-        t, free, n = self.timing, self.free, self.model.n
+        t, free = self.timing, self.free
         y = y.copy()
         x0 = np.exp(y)
         d0, _ = t.delays(x0)
@@ -253,13 +253,20 @@ class LargeSizer:
             ftol *= min(1.0, max(float(w @ x0), 1e-300) / max(abs(f0), 1e-300))
         scale = 1.0 / max(abs(f0), 1e-300)
 
-        if t.compiled:
-            value_grad = self._compiled_value_grad(y, w, lam, beta, scale, count)
-            res = minimise_box(value_grad, y[free], self.log_lo[free], self.log_hi[free],
-                               STEP_ITERS, ftol, MEMORY)
-            count.iterations += int(res.nit)
-            y[free] = res.x
-            return y
+        value_grad = (self._compiled_value_grad if t.compiled else self._numpy_value_grad)(
+            y, w, lam, beta, scale, count)
+        res = minimise_box(value_grad, y[free], self.log_lo[free], self.log_hi[free],
+                           STEP_ITERS, ftol, MEMORY)
+        count.iterations += int(res.nit)
+        y[free] = res.x
+        return y
+
+    def _numpy_value_grad(self, y: np.ndarray, w: np.ndarray, lam: float, beta: float,
+                          scale: float, count: _Count
+                          ) -> Callable[[np.ndarray], tuple[float, np.ndarray, np.ndarray]]:
+        """The objective of ``_minimise`` at the free log sizes ``z`` (written into ``y``),
+        times ``scale``: value, gradient and the diagonal curvature start of L-BFGS."""
+        t, free, n = self.timing, self.free, self.model.n
 
         def value_grad(z: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
             count.evaluations += 1
@@ -274,17 +281,13 @@ class LargeSizer:
             h = np.maximum(h, CURVE_FLOOR * float(h.mean()) + 1e-300)
             return scale * (float(w @ x) + lam * delay), scale * grad[free], scale * h
 
-        res = minimise_box(value_grad, y[free], self.log_lo[free], self.log_hi[free],
-                           STEP_ITERS, ftol, MEMORY)
-        count.iterations += int(res.nit)
-        y[free] = res.x
-        return y
+        return value_grad
 
     def _compiled_value_grad(self, y: np.ndarray, w: np.ndarray, lam: float, beta: float,
                              scale: float, count: _Count
                              ) -> Callable[[np.ndarray], tuple[float, np.ndarray, np.ndarray]]:
-        """The ``value_grad`` of ``_minimise`` by the compiled loops (``kernels.py``): the
-        same quantities, each array written in place."""
+        """``_numpy_value_grad`` by the compiled loops (``kernels.py``): the same
+        quantities, the work arrays reused between evaluations."""
         t, n = self.timing, self.model.n
         free = self._free_idx
         P, PT, m = t.P, t.PT, self.model

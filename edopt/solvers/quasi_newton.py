@@ -53,13 +53,12 @@ def minimise_box(fun: Callable[[np.ndarray], tuple], x0: np.ndarray,
     nit = 0
     while nit < maxiter:
         nit += 1
-        p, slope, moving = pairs.direction(x, g, lo, hi, h)
+        p, gf, slope, moving = pairs.direction(x, g, lo, hi, h)
         if not moving:
             break
         if slope >= 0:                     # not a descent direction: restart from the gradient
             pairs.clear()
-            held = ((x <= lo) & (g > 0)) | ((x >= hi) & (g < 0))
-            p = -np.where(held, 0.0, g)
+            p = -gf
             slope = float(g @ p)
         step = 1.0 if pairs else min(1.0, 1.0 / max(float(np.max(np.abs(p))), 1e-300))
         for _ in range(BACKTRACKS):
@@ -105,7 +104,6 @@ class _Pairs:
         self.S, self.Y = np.empty((memory + 1, n)), np.empty((memory + 1, n))
         self.rho = np.empty(memory + 1)
         self.count = self.head = 0
-        self._q = np.empty(n)
 
     def __len__(self) -> int:
         return self.count
@@ -113,45 +111,32 @@ class _Pairs:
     def clear(self) -> None:
         self.count = 0
 
-    def append(self, s: np.ndarray, y: np.ndarray, rho: float) -> None:
-        i = self.head
-        self.S[i], self.Y[i], self.rho[i] = s, y, rho
-        self.head = (i + 1) % self.rho.size
-        self.count = min(self.count + 1, self.memory)
-
-    def _order(self) -> np.ndarray:
+    def order(self) -> np.ndarray:
         """Row of each stored pair, oldest first."""
         return (self.head - self.count + np.arange(self.count)) % self.rho.size
 
-    def apply(self, g: np.ndarray, h: np.ndarray | None = None) -> np.ndarray:
-        """The L-BFGS product ``H g``, from a scaled identity or the scaled inverse of the
-        diagonal ``h`` (a new array)."""
-        h = np.ones(g.size) if h is None else h
-        if kernels.AVAILABLE:
-            kernels.two_loop(g, self.S, self.Y, self.rho, self._order(), h, self._q)
-            return self._q.copy()
-        return _two_loop(g, self.S, self.Y, self.rho, self._order(), h)
-
     def direction(self, x: np.ndarray, g: np.ndarray, lo: np.ndarray, hi: np.ndarray,
-                  h: np.ndarray | None) -> tuple[np.ndarray, float, bool]:
-        """The projected direction ``-H g`` (variables at a bound that ``g`` pushes against
-        held), its slope ``g @ p``, and whether any variable is free to move."""
+                  h: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, float, bool]:
+        """The projected direction ``p = -H gf``, ``gf`` the gradient without the variables
+        at a bound that it pushes against (held), the slope ``g @ p``, and whether any
+        variable is free to move."""
         h = np.ones(g.size) if h is None else h
         if kernels.AVAILABLE:
-            p = np.empty_like(g)
+            p, gf = np.empty_like(g), np.empty_like(g)
             slope, moving = kernels.direction(x, g, lo, hi, self.S, self.Y, self.rho,
-                                              self._order(), h, np.empty_like(g), p)
-            return p, float(slope), bool(moving)
+                                              self.order(), h, gf, p)
+            return p, gf, float(slope), bool(moving)
         held = ((x <= lo) & (g > 0)) | ((x >= hi) & (g < 0))
         gf = np.where(held, 0.0, g)
         if not np.any(gf):
-            return gf, 0.0, False
-        p = -_two_loop(gf, self.S, self.Y, self.rho, self._order(), h)
+            return gf, gf, 0.0, False
+        p = -_two_loop(gf, self.S, self.Y, self.rho, self.order(), h)
         p[held] = 0.0
-        return p, float(g @ p), True
+        return p, gf, float(g @ p), True
 
     def offer(self, xn: np.ndarray, x: np.ndarray, gn: np.ndarray, g: np.ndarray) -> None:
-        """Keep the pair ``(xn - x, gn - g)`` if its curvature is positive enough."""
+        """Keep the pair ``(xn - x, gn - g)`` if its curvature is positive enough (it is
+        written into the free row at ``head`` either way)."""
         i = self.head
         if kernels.AVAILABLE:
             sy, ns, ny = kernels.pair(xn, x, gn, g, self.S, self.Y, i)
